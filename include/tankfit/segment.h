@@ -1,0 +1,98 @@
+/* Segmenter: zero crossings, current lobes, device attribution, firing cycles, mode. */
+#ifndef TANKFIT_SEGMENT_H
+#define TANKFIT_SEGMENT_H
+
+#include <stddef.h>
+#include <jansson.h>
+#include <tankfit/capture.h>
+#include <tankfit/roles.h>
+#include <tankfit/types.h>
+
+#ifdef __cplusplus
+extern "C" {
+#endif
+
+/* One current lobe: a stretch of one sign between two zeros (or a zero and a
+ * slope break in overlapping operation). */
+typedef struct tf_lobe {
+    double start_s, end_s;      /* sub-sample boundaries */
+    int sign;                   /* +1 or -1 */
+    tf_device device;
+    double peak_s, peak_a;      /* time and value of the extreme (signed) */
+    double charge_c;            /* integral of i over the lobe */
+    double rms_a;               /* RMS over the lobe */
+    size_t i0, i1;              /* sample index range [i0, i1) */
+    size_t burst;               /* index of the burst it belongs to */
+    int clipped;                /* touches clipped current samples: peak not trusted */
+    int start_model, end_model; /* boundary taken from the burst's damped-sine model */
+    int end_by_firing;          /* ended by the next firing (overlapping), not a zero */
+} tf_lobe;
+
+/* One burst: a thyristor lobe and the diode lobe that follows it (or a whole
+ * ring-down), the unit the fitter works on. */
+typedef struct tf_burst {
+    size_t first_lobe, nlobes;
+    size_t i0, i1;              /* sample range [i0, i1) */
+    double start_s, end_s;
+    int clipped;                /* touches clipped samples */
+    int anomalous;              /* has an anomaly (excluded from fits) */
+    int ends_by_firing;         /* cut short by the next firing (overlapping) */
+} tf_burst;
+
+/* One firing cycle of a thyristor. */
+typedef struct tf_cycle {
+    double start_s;             /* firing instant (thyristor lobe start) */
+    double period_s;            /* to the same thyristor's next firing (NAN for the last) */
+    double frequency_hz;        /* 1 / period_s */
+    double thyristor_s;         /* thyristor conduction time */
+    double diode_s;             /* diode conduction time */
+    double turnoff_available_s; /* thyristor current zero until forward voltage returns */
+    double dead_s;              /* zero-current time after the diode lobe */
+    double overlap_s;           /* diode time cut by the next firing (overlapping) */
+    tf_device thyristor;
+    size_t lobe_thyristor, lobe_diode; /* indices into lobes; lobe_diode = (size_t)-1 if none */
+} tf_cycle;
+
+typedef struct tf_anomaly {
+    double time_s;
+    char kind[32];              /* "missing-firing", "out-of-sequence", "commutation-failure", "clipped" */
+    char text[192];
+} tf_anomaly;
+
+typedef struct tf_stat3 { double min, median, max; size_t count; } tf_stat3;
+
+typedef struct tf_segment_options {
+    tf_topology topology;       /* TF_TOPO_UNKNOWN: infer from the lobe pattern */
+    double band_k;              /* hysteresis band in noise sigmas (0: default, docs/methods.md) */
+} tf_segment_options;
+
+typedef struct tf_segment_result {
+    tf_topology topology;
+    tf_mode mode;
+    char mode_evidence[256];
+    double noise_sigma_a, band_a;
+    tf_lobe *lobes;         size_t nlobes;
+    tf_burst *bursts;       size_t nbursts;
+    tf_cycle *cycles;       size_t ncycles;
+    tf_anomaly *anomalies;  size_t nanomalies;
+    double *firings_s;      size_t nfirings;    /* firing instants (gates or inferred) */
+    tf_stat3 output_frequency_hz, diode_s, turnoff_available_s;
+} tf_segment_result;
+
+void tf_segment_options_init(tf_segment_options *o);
+
+/* Segment the current channel (roles->current) of cap, using the other roles
+ * where present. *out is owned by the caller (tf_segment_free). */
+tf_status tf_segment_run(const tf_capture *cap, const tf_roles *roles,
+                         const tf_segment_options *opt, tf_segment_result **out,
+                         tf_error *err);
+
+void tf_segment_free(tf_segment_result *r);
+
+/* JSON view (keys: docs/json.md): a new reference owned by the caller. */
+json_t *tf_segment_to_json(const tf_segment_result *r);
+
+#ifdef __cplusplus
+}
+#endif
+#endif
