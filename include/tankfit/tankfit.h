@@ -12,4 +12,6 @@
 #include <tankfit/fit.h>
 #include <tankfit/spectrum.h>
 #include <tankfit/analysis.h>
+#include <tankfit/synth.h>
+#include <tankfit/synth_output.h>
 #endif
