@@ -3,6 +3,7 @@
 #define TANKFIT_CAPTURE_H
 
 #include <stddef.h>
+#include <jansson.h>
 #include <tankfit/error.h>
 #include <tankfit/stats.h>
 
@@ -84,6 +85,14 @@ int tf_capture_find(const tf_capture *cap, const char *name);
 
 /* Compute (or recompute) stats of every channel. */
 void tf_capture_compute_stats(tf_capture *cap);
+
+/* The capture as a JSON object (jansson) for `tankfit inspect --json` and
+ * acceptance records: samples, sample_rate_hz, dt_s, duration_s (n * dt_s),
+ * t0_s, path, dialect{...}, metadata[], warnings[] and channels[] with name,
+ * unit, scaling and statistics (null where a value is unknown, e.g. stats not
+ * computed). Every key is listed in docs/inspect.md. Returns a new reference
+ * the caller owns (json_decref), or NULL when cap is NULL or memory runs out. */
+json_t *tf_capture_to_json(const tf_capture *cap);
 
 /* Time of sample k. */
 static inline double tf_capture_time(const tf_capture *cap, size_t k)
