@@ -1,0 +1,225 @@
+/* Streaming CSV writer for simulated captures, with a fixed-format scientific number printer. */
+#include "synth_write.h"
+
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+/* exact powers of ten up to 1e22 (the largest exactly representable in a double) */
+static const double p10[] = {1e0,  1e1,  1e2,  1e3,  1e4,  1e5,  1e6,  1e7,
+                             1e8,  1e9,  1e10, 1e11, 1e12, 1e13, 1e14, 1e15,
+                             1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22};
+static const uint64_t p10u[] = {1ULL, 10ULL, 100ULL, 1000ULL, 10000ULL, 100000ULL,
+                                1000000ULL, 10000000ULL, 100000000ULL, 1000000000ULL,
+                                10000000000ULL, 100000000000ULL, 1000000000000ULL,
+                                10000000000000ULL, 100000000000000ULL, 1000000000000000ULL};
+
+/* a * 10^s with one rounding where |s| <= 22 */
+static double scale10(double a, int s)
+{
+    if (s >= 0) {
+        while (s > 22) {
+            a *= 1e22;
+            s -= 22;
+        }
+        return a * p10[s];
+    }
+    s = -s;
+    while (s > 22) {
+        a /= 1e22;
+        s -= 22;
+    }
+    return a / p10[s];
+}
+
+/* round(v * 10^s) for the decimal digits of v, v > 0: the scaled value is rounded
+ * once; when its fraction is within 1e-6 (+ 2 ulp) of one half, the exact residual of that
+ * rounding (an FMA) decides, ties to even as printf does. */
+static double round_scaled(double v, int s)
+{
+    double x = scale10(v, s);
+    double f = floor(x), fr = x - f;
+    double side = fr - 0.5;
+    if (fabs(side) < 1e-6 + x * 4.5e-16) {
+        if (s < -22 || s > 22)
+            return -1; /* two roundings: let printf decide */
+        if (s >= 0)
+            side += fma(v, p10[s], -x);             /* v 10^s - x, exact */
+        else
+            side += fma(-x, p10[-s], v) / p10[-s];  /* (v - x 10^-s) / 10^-s */
+    }
+    if (side > 0 || (side == 0 && fmod(f, 2.0) != 0))
+        return f + 1;
+    return f;
+}
+
+size_t tf_sw_format_sci(char *out, double v, int digits)
+{
+    char *p = out;
+    if (digits < 1)
+        digits = 1;
+    if (digits > 15)
+        digits = 15;
+    if (isnan(v)) {
+        memcpy(out, "nan", 3);
+        return 3;
+    }
+    int neg = v < 0;
+    if (neg) {
+        *p++ = '-';
+        v = -v;
+    }
+    if (isinf(v)) {
+        memcpy(p, "inf", 3);
+        return (size_t)(p - out) + 3;
+    }
+    uint64_t m = 0;
+    int e = 0;
+    if (v == 0) {
+        if (p != out)
+            p = out; /* "-0" prints as "0" */
+    } else {
+        int e2;
+        frexp(v, &e2);
+        e = (int)floor((e2 - 1) * 0.30102999566398120); /* log10(2) */
+        for (int tries = 0; tries < 4; tries++) {
+            double s = round_scaled(v, digits - 1 - e);
+            if (s < 0) {
+                char tmp[40];
+                int n = snprintf(tmp, sizeof tmp, "%.*e", digits - 1, neg ? -v : v);
+                memcpy(out, tmp, (size_t)n);
+                return (size_t)n;
+            }
+            if (s >= (double)p10u[digits]) {
+                e++;
+                continue;
+            }
+            if (s < (double)p10u[digits - 1]) {
+                e--;
+                continue;
+            }
+            m = (uint64_t)s;
+            break;
+        }
+        if (m == 0) /* rounding straddles a power of ten: 9.99..5 -> 1.00..0 e+1 */
+            m = p10u[digits - 1];
+    }
+    char dig[16];
+    for (int i = digits - 1; i >= 0; i--) {
+        dig[i] = (char)('0' + m % 10);
+        m /= 10;
+    }
+    *p++ = dig[0];
+    if (digits > 1) {
+        *p++ = '.';
+        memcpy(p, dig + 1, (size_t)digits - 1);
+        p += digits - 1;
+    }
+    *p++ = 'e';
+    if (e < 0) {
+        *p++ = '-';
+        e = -e;
+    } else {
+        *p++ = '+';
+    }
+    if (e >= 100) {
+        *p++ = (char)('0' + e / 100);
+        e %= 100;
+    }
+    *p++ = (char)('0' + e / 10);
+    *p++ = (char)('0' + e % 10);
+    return (size_t)(p - out);
+}
+
+#define CSV_BUF (1u << 20)
+
+struct tf_sw_csv {
+    tf_sw_file *f;
+    tf_sw_layout lay;
+    char *buf;
+    size_t len;
+};
+
+static tf_status flush(tf_sw_csv *w, tf_error *err)
+{
+    tf_status st = tf_sw_file_write(w->f, w->buf, w->len, err);
+    w->len = 0;
+    return st;
+}
+
+static void put(tf_sw_csv *w, const char *s)
+{
+    size_t n = strlen(s);
+    memcpy(w->buf + w->len, s, n);
+    w->len += n;
+}
+
+tf_sw_csv *tf_sw_csv_create(tf_sw_file *f, const tf_sw_layout *lay, tf_error *err)
+{
+    if (lay->time_digits < 1 || lay->time_digits > 15 || lay->value_digits < 1 ||
+        lay->value_digits > 15) {
+        tf_error_set(err, TF_ERR_USAGE,
+                     "[capture] time_digits and value_digits: expected 1 to 15 significant "
+                     "digits, found %d and %d", lay->time_digits, lay->value_digits);
+        return NULL;
+    }
+    tf_sw_csv *w = calloc(1, sizeof *w);
+    char *buf = malloc(CSV_BUF);
+    if (!w || !buf) {
+        free(w);
+        free(buf);
+        tf_error_set(err, TF_ERR_NOMEM, "out of memory for the CSV buffer");
+        return NULL;
+    }
+    w->f = f;
+    w->lay = *lay;
+    w->buf = buf;
+    put(w, "time (s)");
+    for (size_t c = 0; c < lay->nchan; c++) {
+        put(w, ",");
+        put(w, lay->name[c]);
+        if (lay->unit[c][0]) {
+            put(w, " (");
+            put(w, lay->unit[c]);
+            put(w, ")");
+        }
+    }
+    put(w, "\n");
+    return w;
+}
+
+tf_status tf_sw_csv_write(tf_sw_csv *w, size_t k0, const float *const ch[], size_t n,
+                          tf_error *err)
+{
+    /* one row is at most 25 bytes per field */
+    size_t row_max = 25 * (w->lay.nchan + 1) + 1;
+    int td = w->lay.time_digits, vd = w->lay.value_digits;
+    for (size_t k = 0; k < n; k++) {
+        if (w->len + row_max > CSV_BUF) {
+            tf_status st = flush(w, err);
+            if (st != TF_OK)
+                return st;
+        }
+        char *p = w->buf + w->len;
+        double t = w->lay.t0_s + (double)(k0 + k) * w->lay.dt_s;
+        p += tf_sw_format_sci(p, t, td);
+        for (size_t c = 0; c < w->lay.nchan; c++) {
+            *p++ = ',';
+            p += tf_sw_format_sci(p, (double)ch[c][k], vd);
+        }
+        *p++ = '\n';
+        w->len = (size_t)(p - w->buf);
+    }
+    return TF_OK;
+}
+
+tf_status tf_sw_csv_finish(tf_sw_csv *w, tf_error *err)
+{
+    if (!w)
+        return TF_OK;
+    tf_status st = w->len ? flush(w, err) : TF_OK;
+    free(w->buf);
+    free(w);
+    return st;
+}
