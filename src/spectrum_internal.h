@@ -1,0 +1,54 @@
+/* Private helpers of the spectrum module: resampling, cached FFTW plans, Hann peaks. */
+#ifndef TF_SPECTRUM_INTERNAL_H
+#define TF_SPECTRUM_INTERNAL_H
+
+#include <math.h>
+#include <stddef.h>
+#include <complex.h>
+#include <fftw3.h>
+
+/* Cubic Lagrange interpolation of x[0..n-1] (n >= 4) at fractional index pos,
+ * through the four samples around it (the stencil moves inwards at the ends,
+ * positions outside [0, n-1] are clamped). At an integer position it returns
+ * the sample exactly. Error bound for a sinusoid of amplitude A with P samples
+ * per period: 36.5 A / P^4 (docs/spectrum.md). */
+static inline double tf_sp_interp(const float *x, size_t n, double pos)
+{
+    if (pos < 0.0)
+        pos = 0.0;
+    else if (pos > (double)(n - 1))
+        pos = (double)(n - 1);
+    long k = (long)floor(pos) - 1;
+    if (k < 0)
+        k = 0;
+    else if (k > (long)n - 4)
+        k = (long)n - 4;
+    const double u = pos - (double)k;
+    const double a = u - 1.0, b = u - 2.0, c = u - 3.0;
+    const float *p = x + k;
+    return -(a * b * c / 6.0) * p[0] + (u * b * c * 0.5) * p[1] - (u * a * c * 0.5) * p[2] +
+           (u * a * b / 6.0) * p[3];
+}
+
+/* out[j] = tf_sp_interp(x, n, pos0 + j * step) for j in [0, count): the
+ * resampled window the synchronous analysis folds (exposed for tests). */
+void tf_sp_resample(const float *x, size_t n, double pos0, double step, size_t count,
+                    double *out);
+
+/* A real-to-complex FFTW plan of length n (FFTW_ESTIMATE), made once per size
+ * and kept for the life of the process; execute it with fftw_execute_dft_r2c
+ * on arrays from fftw_malloc. NULL when FFTW cannot plan. Thread-safe. */
+fftw_plan tf_sp_plan_r2c(size_t n);
+
+/* Hann-windowed peak near fractional bin nu_guess (searched within +/- search
+ * bins) of the r2c spectrum X of L points windowed by the periodic Hann
+ * window: interpolated bin position, peak amplitude and phase (cosine
+ * convention, at the window's first sample), by the two-bin ratio method
+ * (Grandke 1983). Returns 0, or -1 when no peak fits in the spectrum. */
+int tf_sp_hann_peak(const fftw_complex *X, size_t L, double nu_guess, int search,
+                    double *nu, double *amp, double *phase);
+
+/* Apply the periodic Hann window w[k] = 0.5 - 0.5 cos(2 pi k / L) to x. */
+void tf_sp_hann_apply(double *x, size_t L);
+
+#endif
