@@ -1,10 +1,706 @@
-/* CSV importer: PLACEHOLDER until the importer lands. */
+/* CSV importer: libcsv in fixed-size chunks, two parser threads on line-aligned halves. */
 #include <tankfit/import.h>
+
+#include <csv.h>
+#include <errno.h>
+#include <fcntl.h>
+#include <float.h>
+#include <math.h>
+#include <pthread.h>
+#include <stdarg.h>
+#include <stdatomic.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <unistd.h>
+
+#include "csv_internal.h"
+#include "numparse.h"
+
+#define CHUNK ((size_t)1 << 20)          /* bytes handed to libcsv per call */
+#define MIN_SPLIT ((size_t)8 << 20)      /* smaller files use one thread */
+#define MAX_WORKERS 2
+enum { MAP_SKIP = -1, MAP_TIME = -2 };
+
+typedef struct csv_job {
+    const tf_csv_source *src;
+    const tf_csv_layout *lay;
+    const tf_import_options *opt;
+    const int *map;                      /* per file column: channel index, MAP_TIME or MAP_SKIP */
+    float **out;                         /* per channel: the capture's samples */
+    const double *factor;                /* per channel: unit prefix factor from the header */
+    size_t nout;
+    size_t total;                        /* bytes to parse */
+    atomic_size_t done;
+    atomic_int abort;                    /* the first part failed: later parts may stop */
+} csv_job;
+
+typedef struct csv_worker {
+    csv_job *job;
+    size_t begin, end;                   /* byte range [begin, end), starting at a line */
+    size_t line;                         /* line number of the row being read */
+    size_t base, cap;                    /* global index of local row 0; rows allowed */
+    size_t row;                          /* rows stored */
+    size_t col;                          /* fields seen in the current row */
+    int trail;                           /* field ncols was empty (a trailing delimiter) */
+    int have_t;                          /* the current row's time value is in t/q */
+    double t, q;
+    int prev_cr;
+    int first;                           /* the first part: reports progress */
+    size_t terms;                        /* line ends in the range (counting pass) */
+    int quotes;                          /* a '"' in the range */
+    tf_time_acc time;
+    size_t *gaps, *gap_line;             /* per channel */
+    tf_status status;
+    char msg[TF_ERROR_MSG_SIZE];
+} csv_worker;
+
+static void fail(csv_worker *w, tf_status code, size_t col, const char *fmt, ...)
+    __attribute__((format(printf, 4, 5)));
+
+static void fail(csv_worker *w, tf_status code, size_t col, const char *fmt, ...)
+{
+    if (w->status)
+        return;
+    int k = snprintf(w->msg, sizeof w->msg, "%s:%zu:%zu: ", w->job->src->path, w->line, col);
+    if (k < 0 || (size_t)k >= sizeof w->msg)
+        k = 0;
+    va_list ap;
+    va_start(ap, fmt);
+    vsnprintf(w->msg + k, sizeof w->msg - (size_t)k, fmt, ap);
+    va_end(ap);
+    w->status = code;
+}
+
+static void gap(csv_worker *w, int m, size_t c, const char *s, size_t len)
+{
+    if (!w->job->opt->gaps_interpolate) {
+        char ex[64];
+        if (len == 0)
+            fail(w, TF_ERR_DATA, c + 1, "expected a number, found an empty field");
+        else
+            fail(w, TF_ERR_DATA, c + 1, "expected a finite number, found '%s'",
+                 tf_error_excerpt(ex, sizeof ex, s, (unsigned)len, TF_CSV_EXCERPT));
+        return;
+    }
+    w->job->out[m][w->base + w->row] = NAN;
+    if (w->gaps[m]++ == 0)
+        w->gap_line[m] = w->line;
+}
+
+static void time_field(csv_worker *w, size_t c, const char *s, size_t len)
+{
+    const tf_csv_layout *lay = w->job->lay;
+    double v, f = lay->cols[c].factor;
+    const char *e;
+    char ex[64];
+    if (len == 0 || tf_parse_double(s, len, lay->decimal, &v, &e) != 0 || e != s + len ||
+        !isfinite(v)) {
+        fail(w, TF_ERR_DATA, c + 1, "expected a time value (a finite number), found '%s'",
+             tf_error_excerpt(ex, sizeof ex, s, (unsigned)len, TF_CSV_EXCERPT));
+        return;
+    }
+    tf_num_text nt;
+    tf_csv_scan_number(s, len, lay->decimal, &nt);
+    w->t = v * f;
+    w->q = tf_csv_resolution(&nt, lay->time_sig) * f;
+    w->have_t = 1;
+}
+
+static void on_field(void *data, size_t len, void *ctx)
+{
+    csv_worker *w = ctx;
+    const char *s = data;
+    const csv_job *job = w->job;
+    if (w->status || (job->lay->space_mode && len == 0))
+        return;
+    size_t c = w->col++;
+    if (c >= job->lay->ncols) {
+        w->trail = c == job->lay->ncols && len == 0;
+        if (w->col > TF_CSV_FIELDS_MAX)
+            fail(w, TF_ERR_DATA, c + 1, "expected %zu fields, found more than %zu",
+                 job->lay->ncols, TF_CSV_FIELDS_MAX);
+        return;
+    }
+    int m = job->map[c];
+    if (m == MAP_SKIP)
+        return;
+    if (w->row >= w->cap) {
+        fail(w, TF_ERR_DATA, c + 1, "expected %s line ends throughout, found another kind",
+             job->lay->line_end);
+        return;
+    }
+    if (m == MAP_TIME) {
+        time_field(w, c, s, len);
+        return;
+    }
+    double v;
+    const char *e;
+    if (len == 0) {
+        gap(w, m, c, s, len);
+        return;
+    }
+    if (tf_parse_double(s, len, job->lay->decimal, &v, &e) != 0 || e != s + len) {
+        char ex[64];
+        fail(w, TF_ERR_DATA, c + 1, "expected a number, found '%s'",
+             tf_error_excerpt(ex, sizeof ex, s, (unsigned)len, TF_CSV_EXCERPT));
+        return;
+    }
+    if (!isfinite(v)) {
+        gap(w, m, c, s, len);
+        return;
+    }
+    v *= job->factor[m];
+    if (fabs(v) > FLT_MAX) {
+        char ex[64];
+        fail(w, TF_ERR_DATA, c + 1, "expected a value within +-3.4e38 (single precision), "
+             "found '%s'", tf_error_excerpt(ex, sizeof ex, s, (unsigned)len, TF_CSV_EXCERPT));
+        return;
+    }
+    job->out[m][w->base + w->row] = (float)v;
+}
+
+static void on_row(int term, void *ctx)
+{
+    csv_worker *w = ctx;
+    if (term == '\n' && w->prev_cr && w->col == 0) { /* the LF of a CRLF */
+        w->prev_cr = 0;
+        return;
+    }
+    w->prev_cr = term == '\r';
+    size_t fields = w->col, n = w->job->lay->ncols;
+    int trail = w->trail;
+    w->col = 0;
+    w->trail = 0;
+    if (fields == 0 || w->status) {
+        w->have_t = 0;
+        w->line++;
+        return;
+    }
+    if (fields != n && !(fields == n + 1 && trail)) {
+        const tf_csv_layout *lay = w->job->lay;
+        fail(w, TF_ERR_DATA, (fields < n ? fields : n) + 1,
+             "expected %zu fields as in line %zu, found %zu", n,
+             lay->header_line ? lay->header_line : lay->data_line, fields);
+        w->line++;
+        return;
+    }
+    if (w->have_t) {
+        char why[400];
+        w->have_t = 0;
+        if (tf_time_acc_add(&w->time, w->t, w->q, w->line, why, sizeof why) != 0) {
+            fail(w, TF_ERR_DATA, (size_t)w->job->lay->time_col + 1, "%s", why);
+            w->line++;
+            return;
+        }
+    }
+    w->row++;
+    w->line++;
+}
+
+/* ---- the two passes over a part: count line ends, then parse ---- */
+
+static void *count_part(void *arg)
+{
+    csv_worker *w = arg;
+    char *buf = malloc(CHUNK);
+    char term = w->job->lay->term;
+    if (!buf) {
+        w->status = TF_ERR_NOMEM;
+        snprintf(w->msg, sizeof w->msg, "out of memory");
+        return NULL;
+    }
+    for (size_t off = w->begin; off < w->end;) {
+        size_t want = w->end - off < CHUNK ? w->end - off : CHUNK;
+        ssize_t got = tf_csv_read(w->job->src, off, buf, want);
+        if (got <= 0) {
+            w->status = TF_ERR_IO;
+            snprintf(w->msg, sizeof w->msg, "%s: cannot read at byte %zu", w->job->src->path, off);
+            break;
+        }
+        size_t n = 0;
+        for (ssize_t i = 0; i < got; i++)
+            n += buf[i] == term;
+        w->terms += n;
+        w->quotes |= memchr(buf, '"', (size_t)got) != NULL;
+        off += (size_t)got;
+    }
+    free(buf);
+    return NULL;
+}
+
+static void report_progress(csv_worker *w, size_t got)
+{
+    csv_job *job = w->job;
+    size_t done = atomic_fetch_add(&job->done, got) + got;
+    if (w->first && job->opt->progress && !job->opt->quiet_progress && job->total)
+        job->opt->progress(job->opt->progress_ctx, (double)done / (double)job->total);
+}
+
+static void *parse_part(void *arg)
+{
+    csv_worker *w = arg;
+    csv_job *job = w->job;
+    struct csv_parser p;
+    char *buf = malloc(CHUNK);
+    if (!buf || csv_init(&p, CSV_REPALL_NL) != 0) {
+        free(buf);
+        w->status = TF_ERR_NOMEM;
+        snprintf(w->msg, sizeof w->msg, "out of memory");
+        return NULL;
+    }
+    csv_set_delim(&p, (unsigned char)job->lay->delim);
+    csv_set_realloc_func(&p, tf_csv_capped_realloc);
+    csv_set_blk_size(&p, 65536);
+    for (size_t off = w->begin; off < w->end && !w->status;) {
+        if (!w->first && atomic_load(&job->abort))
+            break;
+        size_t want = w->end - off < CHUNK ? w->end - off : CHUNK;
+        ssize_t got = tf_csv_read(job->src, off, buf, want);
+        if (got <= 0) {
+            fail(w, TF_ERR_IO, 1, "cannot read the file at byte %zu", off);
+            break;
+        }
+        size_t used = csv_parse(&p, buf, (size_t)got, on_field, on_row, w);
+        if (used != (size_t)got && !w->status)
+            fail(w, TF_ERR_DATA, w->col + 1,
+                 "expected fields of at most 1 MiB, found a longer one (lines longer than "
+                 "1 MiB are not accepted)");
+        off += (size_t)got;
+        report_progress(w, (size_t)got);
+    }
+    if (!w->status)
+        csv_fini(&p, on_field, on_row, w);
+    csv_free(&p);
+    free(buf);
+    if (w->status && w->first)
+        atomic_store(&job->abort, 1);
+    return NULL;
+}
+
+/* Run fn on every worker, on threads when there are several. */
+static void run_workers(csv_worker *w, size_t n, void *(*fn)(void *))
+{
+    pthread_t th[MAX_WORKERS];
+    int started[MAX_WORKERS] = {0};
+    for (size_t i = 1; i < n; i++)
+        started[i] = pthread_create(&th[i], NULL, fn, &w[i]) == 0;
+    fn(&w[0]);
+    for (size_t i = 1; i < n; i++) {
+        if (started[i])
+            pthread_join(th[i], NULL);
+        else
+            fn(&w[i]);
+    }
+}
+
+/* ---- choosing columns ---- */
+
+static int find_column(const tf_csv_layout *lay, const char *name, size_t len)
+{
+    for (size_t c = 0; c < lay->ncols; c++)
+        if (strlen(lay->cols[c].name) == len && memcmp(lay->cols[c].name, name, len) == 0)
+            return (int)c;
+    return -1;
+}
+
+static void list_columns(const tf_csv_layout *lay, char *out, size_t size)
+{
+    out[0] = '\0';
+    for (size_t c = 0; c < lay->ncols; c++) {
+        if ((int)c == lay->time_col)
+            continue;
+        size_t l = strlen(out);
+        snprintf(out + l, size - l, "%s%s", l ? ", " : "", lay->cols[c].name);
+    }
+}
+
+/* Fill map (per file column) and return the number of channels, or -1 with err. */
+static long choose_columns(const tf_csv_layout *lay, const tf_import_options *opt,
+                           const char *path, int *map, tf_error *err)
+{
+    long n = 0;
+    for (size_t c = 0; c < lay->ncols; c++)
+        map[c] = (int)c == lay->time_col ? MAP_TIME : MAP_SKIP;
+    if (!opt->channels[0]) {
+        for (size_t c = 0; c < lay->ncols; c++)
+            if (map[c] == MAP_SKIP)
+                map[c] = (int)n++;
+        return n;
+    }
+    char have[512];
+    for (const char *p = opt->channels; *p;) {
+        const char *q = strchr(p, ',');
+        size_t len = q ? (size_t)(q - p) : strlen(p);
+        const char *s = p;
+        while (len && *s == ' ') {
+            s++;
+            len--;
+        }
+        while (len && s[len - 1] == ' ')
+            len--;
+        int c = find_column(lay, s, len);
+        list_columns(lay, have, sizeof have);
+        if (c < 0 || map[c] != MAP_SKIP) {
+            tf_error_set(err, TF_ERR_USAGE, "--channels: %s '%.*s' in %s (channels: %s)",
+                         c < 0 ? "no channel" : map[c] == MAP_TIME ? "the time base is not a channel:"
+                                                                   : "listed twice:",
+                         (int)len, s, path, have);
+            return -1;
+        }
+        map[c] = (int)n++;
+        p = q ? q + 1 : p + strlen(p);
+    }
+    return n;
+}
+
+/* ---- after parsing ---- */
+
+/* Linear interpolation over NaN runs; runs at an end take the nearest value. */
+static int fill_gaps(float *x, size_t n)
+{
+    size_t f = 0;
+    while (f < n && isnan(x[f]))
+        f++;
+    if (f == n)
+        return -1;
+    for (size_t i = 0; i < f; i++)
+        x[i] = x[f];
+    size_t last = f;
+    for (size_t i = f + 1; i < n; i++) {
+        if (isnan(x[i]))
+            continue;
+        for (size_t k = last + 1; k < i; k++)
+            x[k] = (float)(x[last] + (x[i] - (double)x[last]) * (double)(k - last) /
+                                         (double)(i - last));
+        last = i;
+    }
+    for (size_t i = last + 1; i < n; i++)
+        x[i] = x[last];
+    return 0;
+}
+
+static tf_status finish_gaps(tf_capture *cap, csv_worker *w, size_t nw, tf_error *err)
+{
+    for (size_t m = 0; m < cap->nchan; m++) {
+        size_t count = 0, line = 0;
+        for (size_t i = 0; i < nw; i++) {
+            if (w[i].gaps[m] && !count)
+                line = w[i].gap_line[m];
+            count += w[i].gaps[m];
+        }
+        if (!count)
+            continue;
+        if (fill_gaps(cap->ch[m].samples, cap->n) != 0)
+            return tf_error_set(err, TF_ERR_DATA,
+                                "%s:%zu:1: expected at least one finite value in channel '%s', "
+                                "found only empty or non-finite ones",
+                                cap->path, line, cap->ch[m].name);
+        cap->ch[m].gaps_filled = count;
+        tf_capture_add_warning(cap, "%s: channel '%s': %zu empty or non-finite value%s filled "
+                               "by linear interpolation (the first at line %zu)",
+                               cap->path, cap->ch[m].name, count, count == 1 ? "" : "s", line);
+    }
+    return TF_OK;
+}
+
+static void fill_dialect(tf_capture *cap, const tf_csv_layout *lay, double resolution)
+{
+    tf_dialect *d = &cap->dialect;
+    strcpy(d->format, "csv");
+    d->delimiter = lay->delim;
+    d->decimal = lay->decimal;
+    d->header_line = (int)lay->header_line;
+    d->metadata_lines = lay->metadata_lines;
+    d->has_bom = lay->has_bom;
+    snprintf(d->line_end, sizeof d->line_end, "%s", lay->line_end);
+    d->time_column = lay->time_col;
+    d->time_resolution_s = resolution;
+    d->wav_subformat[0] = '\0';
+}
+
+/* Where the second part starts: just after the first line end past the middle. */
+static size_t split_point(const tf_csv_source *src, const tf_csv_layout *lay)
+{
+    char buf[65536];
+    size_t mid = lay->data_offset + (src->size - lay->data_offset) / 2;
+    for (size_t off = mid; off < src->size && off < mid + TF_CSV_FIELD_MAX;) {
+        ssize_t got = tf_csv_read(src, off, buf, sizeof buf);
+        if (got <= 0)
+            return 0;
+        char *t = memchr(buf, lay->term, (size_t)got);
+        if (t)
+            return off + (size_t)(t - buf) + 1;
+        off += (size_t)got;
+    }
+    return 0;
+}
+
+static size_t plan_parts(const tf_csv_source *src, const tf_csv_layout *lay,
+                         const tf_import_options *opt, csv_worker *w, csv_job *job)
+{
+    long cores = sysconf(_SC_NPROCESSORS_ONLN);
+    size_t want = opt->threads > 0 ? (size_t)opt->threads : (cores > 1 ? 2 : 1);
+    size_t split = 0;
+    if (want > 1 && !lay->quotes && src->size - lay->data_offset >= MIN_SPLIT)
+        split = split_point(src, lay);
+    size_t n = split && split < src->size ? 2 : 1;
+    for (size_t i = 0; i < n; i++) {
+        memset(&w[i], 0, sizeof w[i]);
+        w[i].job = job;
+        w[i].first = i == 0;
+    }
+    w[0].begin = lay->data_offset;
+    w[0].end = n == 2 ? split : src->size;
+    if (n == 2) {
+        w[1].begin = split;
+        w[1].end = src->size;
+    }
+    return n;
+}
+
+static tf_status run_parse(const tf_csv_source *src, const tf_csv_layout *lay, csv_job *job,
+                           csv_worker *w, size_t *nw, tf_capture *cap, tf_error *err)
+{
+    run_workers(w, *nw, count_part);
+    for (size_t i = 0; i < *nw; i++)
+        if (w[i].status)
+            return tf_error_set(err, w[i].status, "%s", w[i].msg);
+    if (*nw == 2 && (w[0].quotes || w[1].quotes)) { /* a quoted line end may span the split */
+        w[0].terms += w[1].terms;
+        w[0].end = src->size;
+        *nw = 1;
+    }
+    size_t total = 0;
+    for (size_t i = 0; i < *nw; i++) {
+        w[i].base = total;
+        w[i].cap = w[i].terms + 1;
+        total += w[i].cap;
+    }
+    w[0].line = lay->data_line;
+    if (*nw == 2)
+        w[1].line = lay->data_line + w[0].terms;
+    tf_status st = tf_capture_alloc(cap, job->nout, total, err);
+    if (st != TF_OK)
+        return st;
+    float **out = malloc((job->nout ? job->nout : 1) * sizeof *out);
+    if (!out)
+        return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
+    for (size_t m = 0; m < job->nout; m++)
+        out[m] = cap->ch[m].samples;
+    job->out = out;
+    job->total = src->size - lay->data_offset;
+    for (size_t i = 0; i < *nw && st == TF_OK; i++) {
+        w[i].gaps = calloc(2 * (job->nout ? job->nout : 1), sizeof(size_t));
+        if (!w[i].gaps)
+            st = tf_error_set(err, TF_ERR_NOMEM, "out of memory");
+        else
+            w[i].gap_line = w[i].gaps + job->nout;
+        if (st == TF_OK && lay->time_col >= 0)
+            st = tf_time_acc_init(&w[i].time, lay->d_ref, w[i].cap, err);
+    }
+    if (st == TF_OK)
+        run_workers(w, *nw, parse_part);
+    free(out);
+    job->out = NULL;
+    for (size_t i = 0; i < *nw && st == TF_OK; i++)
+        if (w[i].status)
+            st = tf_error_set(err, w[i].status, "%s", w[i].msg);
+    return st;
+}
+
+/* Close the hole between the parts left by blank lines, and shrink to n rows. */
+static tf_status compact(tf_capture *cap, csv_worker *w, size_t nw, tf_error *err)
+{
+    size_t n = w[0].row;
+    for (size_t i = 1; i < nw; i++) {
+        if (w[i].base != n)
+            for (size_t m = 0; m < cap->nchan; m++)
+                memmove(cap->ch[m].samples + n, cap->ch[m].samples + w[i].base,
+                        w[i].row * sizeof(float));
+        n += w[i].row;
+    }
+    return tf_capture_truncate(cap, n, err);
+}
+
+static tf_status set_time_base(tf_capture *cap, const tf_csv_layout *lay, csv_worker *w,
+                               size_t nw, const tf_import_options *opt, tf_error *err)
+{
+    double given = opt->dt_s > 0 ? opt->dt_s : opt->sample_rate_hz > 0 ? 1.0 / opt->sample_rate_hz : 0;
+    if (opt->dt_s > 0 && opt->sample_rate_hz > 0 &&
+        fabs(opt->dt_s * opt->sample_rate_hz - 1) > 1e-9)
+        return tf_error_set(err, TF_ERR_USAGE, "--dt %g s and --sample-rate %g Hz disagree",
+                            opt->dt_s, opt->sample_rate_hz);
+    double res = 0;
+    if (lay->time_col < 0) {
+        cap->t0_s = 0;
+        cap->dt_s = given;
+    } else {
+        tf_time_acc parts[MAX_WORKERS];
+        for (size_t i = 0; i < nw; i++)
+            parts[i] = w[i].time;
+        tf_status st = tf_time_finish(parts, nw, cap->path, (size_t)lay->time_col + 1,
+                                      &cap->t0_s, &cap->dt_s, &res, err);
+        if (st != TF_OK)
+            return st;
+        if (given && fabs(cap->dt_s / given - 1) > 1e-6)
+            tf_capture_add_warning(cap, "%s: the time column gives a sample period of %.9g s, "
+                                   "the option %.9g s; using the time column",
+                                   cap->path, cap->dt_s, given);
+    }
+    fill_dialect(cap, lay, res);
+    return TF_OK;
+}
+
+static void name_channels(tf_capture *cap, const tf_csv_layout *lay, const int *map)
+{
+    for (size_t c = 0; c < lay->ncols; c++) {
+        if (map[c] < 0)
+            continue;
+        tf_channel *ch = &cap->ch[map[c]];
+        snprintf(ch->name, sizeof ch->name, "%s", lay->cols[c].name);
+        snprintf(ch->unit, sizeof ch->unit, "%s", lay->cols[c].unit);
+        ch->scale = lay->cols[c].factor;
+    }
+    for (size_t a = 0; a < cap->nchan; a++) /* keep names unique for lookups */
+        for (size_t b = 0; b < a; b++)
+            if (strcmp(cap->ch[a].name, cap->ch[b].name) == 0) {
+                char old[TF_NAME_SIZE];
+                snprintf(old, sizeof old, "%s", cap->ch[a].name);
+                unsigned k = (unsigned)((a + 1) % 100000);
+                snprintf(cap->ch[a].name, sizeof cap->ch[a].name, "%.50s_%u", old, k);
+                tf_capture_add_warning(cap, "%s: a second column '%s' is named '%s'", cap->path,
+                                       old, cap->ch[a].name);
+                break;
+            }
+}
+
+static tf_status check_shape(const tf_csv_layout *lay, const tf_import_options *opt,
+                             const char *path, tf_error *err)
+{
+    int given = opt->sample_rate_hz > 0 || opt->dt_s > 0;
+    size_t line = lay->header_line ? lay->header_line : lay->data_line;
+    if (lay->ncols == 1 && !given)
+        return tf_error_set(err, TF_ERR_DATA,
+                            "%s:%zu:1: expected at least 2 columns (time and a channel), found "
+                            "1 (for a single channel give its sample rate: --sample-rate or --dt)",
+                            path, line);
+    if (lay->time_col < 0 && !given)
+        return tf_error_set(err, TF_ERR_DATA,
+                            "%s:%zu:1: expected a time column (named like 't', 'time' or with "
+                            "unit [s], or an increasing first column), found none; give the "
+                            "sample rate with --sample-rate HZ or --dt S",
+                            path, line);
+    if (lay->ncols > TF_CSV_COLS_MAX)
+        return tf_error_set(err, TF_ERR_DATA, "%s:%zu:1: expected at most %d columns, found %zu",
+                            path, line, TF_CSV_COLS_MAX, lay->ncols);
+    return TF_OK;
+}
+
+static tf_status import_source(const tf_csv_source *src, const tf_import_options *opt,
+                               tf_capture **out, tf_error *err)
+{
+    tf_import_options defaults;
+    if (!opt) {
+        tf_import_options_init(&defaults);
+        opt = &defaults;
+    }
+    tf_capture *cap = tf_capture_create();
+    if (!cap)
+        return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
+    snprintf(cap->path, sizeof cap->path, "%s", src->path);
+    tf_csv_layout lay;
+    csv_job job;
+    csv_worker w[MAX_WORKERS];
+    size_t nw = 0;
+    int *map = NULL;
+    double *factor = NULL;
+    memset(&job, 0, sizeof job);
+    tf_status st = tf_csv_detect(src, opt, &lay, cap, err);
+    if (st == TF_OK)
+        st = check_shape(&lay, opt, src->path, err);
+    if (st == TF_OK) {
+        map = malloc(lay.ncols * sizeof *map);
+        factor = malloc(lay.ncols * sizeof *factor);
+        if (!map || !factor)
+            st = tf_error_set(err, TF_ERR_NOMEM, "out of memory");
+    }
+    long nout = 0;
+    if (st == TF_OK && (nout = choose_columns(&lay, opt, src->path, map, err)) < 0)
+        st = TF_ERR_USAGE;
+    if (st == TF_OK && nout == 0)
+        st = tf_error_set(err, TF_ERR_DATA, "%s:%zu:1: expected a channel besides the time "
+                          "column, found none", src->path, lay.header_line ? lay.header_line : lay.data_line);
+    if (st == TF_OK) {
+        for (size_t c = 0; c < lay.ncols; c++)
+            if (map[c] >= 0)
+                factor[map[c]] = lay.cols[c].factor;
+        job.src = src;
+        job.lay = &lay;
+        job.opt = opt;
+        job.map = map;
+        job.factor = factor;
+        job.nout = (size_t)nout;
+        nw = plan_parts(src, &lay, opt, w, &job);
+        st = run_parse(src, &lay, &job, w, &nw, cap, err);
+    }
+    if (st == TF_OK)
+        st = compact(cap, w, nw, err);
+    if (st == TF_OK)
+        st = set_time_base(cap, &lay, w, nw, opt, err);
+    if (st == TF_OK) {
+        name_channels(cap, &lay, map);
+        st = finish_gaps(cap, w, nw, err);
+    }
+    if (st == TF_OK)
+        st = tf_import_apply_options(cap, opt, err);
+    for (size_t i = 0; i < nw; i++) {
+        free(w[i].gaps);
+        tf_time_acc_free(&w[i].time);
+    }
+    free(map);
+    free(factor);
+    tf_csv_layout_free(&lay);
+    if (st != TF_OK) {
+        tf_capture_destroy(cap);
+        return st;
+    }
+    *out = cap;
+    return TF_OK;
+}
+
+tf_status tf_csv_import_memory(const char *name, const void *data, size_t len,
+                               const tf_import_options *opt, tf_capture **out, tf_error *err)
+{
+    tf_csv_source src = {name, -1, data, len};
+    *out = NULL;
+    return import_source(&src, opt, out, err);
+}
 
 tf_status tf_import_csv(const char *path, const tf_import_options *opt, tf_capture **out,
                         tf_error *err)
 {
-    (void)opt;
     *out = NULL;
-    return tf_error_set(err, TF_ERR_UNAVAILABLE, "%s: CSV import is not built yet", path);
+    int fd = open(path, O_RDONLY | O_CLOEXEC);
+    if (fd < 0)
+        return tf_error_set(err, TF_ERR_NOINPUT, "%s: cannot open: %s", path, strerror(errno));
+    struct stat sb;
+    if (fstat(fd, &sb) != 0) {
+        int e = errno;
+        close(fd);
+        return tf_error_set(err, TF_ERR_NOINPUT, "%s: cannot open: %s", path, strerror(e));
+    }
+    if (!S_ISREG(sb.st_mode)) {
+        close(fd);
+        return tf_error_set(err, TF_ERR_NOINPUT, "%s: cannot open: %s", path,
+                            S_ISDIR(sb.st_mode) ? "it is a directory" : "not a regular file");
+    }
+#ifdef POSIX_FADV_SEQUENTIAL
+    posix_fadvise(fd, 0, 0, POSIX_FADV_SEQUENTIAL);
+#endif
+    tf_csv_source src = {path, fd, NULL, (size_t)sb.st_size};
+    tf_status st = import_source(&src, opt, out, err);
+    close(fd);
+    return st;
 }

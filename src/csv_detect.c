@@ -1,0 +1,655 @@
+/* CSV dialect detection from the first bytes: delimiter, decimal mark, metadata, header, time column. */
+#include "csv_internal.h"
+
+#include <csv.h>
+#include <ctype.h>
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <unistd.h>
+
+#include "numparse.h"
+
+ssize_t tf_csv_read(const tf_csv_source *src, size_t off, void *buf, size_t len)
+{
+    if (src->fd < 0) {
+        if (off >= src->size)
+            return 0;
+        if (len > src->size - off)
+            len = src->size - off;
+        memcpy(buf, src->mem + off, len);
+        return (ssize_t)len;
+    }
+    size_t got = 0;
+    while (got < len) {
+        ssize_t r = pread(src->fd, (char *)buf + got, len - got, (off_t)(off + got));
+        if (r < 0)
+            return -1;
+        if (r == 0)
+            break;
+        got += (size_t)r;
+    }
+    return (ssize_t)got;
+}
+
+void *tf_csv_capped_realloc(void *p, size_t n)
+{
+    return n > TF_CSV_FIELD_MAX + 1 ? NULL : realloc(p, n);
+}
+
+/* ---- splitting one line into fields with libcsv ---- */
+
+typedef struct fieldset {
+    char *text;                    /* field copies, each NUL-terminated */
+    size_t used, cap;
+    size_t off[TF_CSV_COLS_MAX];   /* the first fields of the line */
+    size_t len[TF_CSV_COLS_MAX];
+    size_t n;                      /* fields kept */
+    size_t total;                  /* fields in the line */
+    int space_mode;
+    int trail;                     /* the last field is empty: maybe a trailing delimiter */
+    int full;                      /* out of memory while copying */
+} fieldset;
+
+static void fs_field(void *s, size_t len, void *data)
+{
+    fieldset *fs = data;
+    if (fs->space_mode && len == 0)
+        return;
+    fs->total++;
+    if (fs->n >= TF_CSV_COLS_MAX)
+        return;
+    if (fs->used + len + 1 > fs->cap) {
+        size_t cap = (fs->used + len + 1) * 2;
+        char *t = realloc(fs->text, cap);
+        if (!t) {
+            fs->full = 1;
+            return;
+        }
+        fs->text = t;
+        fs->cap = cap;
+    }
+    memcpy(fs->text + fs->used, s, len);
+    fs->text[fs->used + len] = '\0';
+    fs->off[fs->n] = fs->used;
+    fs->len[fs->n++] = len;
+    fs->used += len + 1;
+}
+
+static void fs_row(int c, void *data)
+{
+    (void)c;
+    (void)data;
+}
+
+static const char *fs_get(const fieldset *fs, size_t i)
+{
+    return fs->text + fs->off[i];
+}
+
+/* Split line (no terminator) into fs. Returns 0, or -1 when libcsv fails. */
+static int split_line(const char *line, size_t len, char delim, fieldset *fs)
+{
+    struct csv_parser p;
+    fs->used = fs->n = fs->total = 0;
+    fs->space_mode = delim == ' ';
+    fs->full = 0;
+    if (csv_init(&p, 0) != 0)
+        return -1;
+    csv_set_delim(&p, (unsigned char)delim);
+    csv_set_realloc_func(&p, tf_csv_capped_realloc);
+    csv_set_blk_size(&p, 65536);
+    size_t done = csv_parse(&p, line, len, fs_field, fs_row, fs);
+    int bad = done != len || csv_fini(&p, fs_field, fs_row, fs) != 0 || fs->full;
+    csv_free(&p);
+    fs->trail = !fs->space_mode && fs->total > 1 && fs->n == fs->total &&
+                fs->len[fs->n - 1] == 0;
+    return bad ? -1 : 0;
+}
+
+/* The line has ncols fields, or ncols and an empty one after a trailing delimiter. */
+static int fits(const fieldset *fs, size_t ncols)
+{
+    return fs->total == ncols || (fs->total == ncols + 1 && fs->trail);
+}
+
+/* ---- classifying lines ---- */
+
+enum { F_NUMBER = 1, F_GAP = 2, F_TEXT = 4 };
+
+static int field_kind(const char *s, size_t len, char decimal)
+{
+    double v;
+    const char *e;
+    if (len == 0)
+        return F_GAP;
+    if (tf_parse_double(s, len, decimal, &v, &e) != 0 || e != s + len)
+        return F_TEXT;
+    return isfinite(v) ? F_NUMBER : F_GAP;
+}
+
+typedef struct line_info {
+    size_t fields;
+    int kinds;                     /* OR of the field kinds */
+} line_info;
+
+static int is_numeric_row(const line_info *li)
+{
+    return (li->kinds & F_NUMBER) && !(li->kinds & F_TEXT);
+}
+
+typedef struct head {
+    char *buf;                     /* the first bytes, BOM removed */
+    size_t len;
+    size_t bom;                    /* 3 when a UTF-8 BOM was skipped */
+    size_t start[TF_CSV_HEAD_LINES], length[TF_CSV_HEAD_LINES];
+    size_t nlines;
+    int complete;                  /* the head is the whole file */
+} head;
+
+static void classify(const head *h, size_t i, char delim, char decimal, fieldset *fs,
+                     line_info *li)
+{
+    li->fields = 0;
+    li->kinds = 0;
+    if (split_line(h->buf + h->start[i], h->length[i], delim, fs) != 0) {
+        li->kinds = F_TEXT;
+        return;
+    }
+    li->fields = fs->total - (size_t)fs->trail;
+    for (size_t k = 0; k < fs->n - (size_t)fs->trail; k++)
+        li->kinds |= field_kind(fs_get(fs, k), fs->len[k], decimal);
+    if (fs->n < fs->total)
+        li->kinds |= F_TEXT; /* too many fields to be a data row of this tool */
+}
+
+/* ---- reading the head and splitting it into lines ---- */
+
+static tf_status read_head(const tf_csv_source *src, head *h, tf_csv_layout *lay, tf_error *err)
+{
+    size_t want = src->size < TF_CSV_HEAD_MAX ? src->size : TF_CSV_HEAD_MAX;
+    h->buf = malloc(want + 1);
+    if (!h->buf)
+        return tf_error_set(err, TF_ERR_NOMEM, "out of memory reading %s", src->path);
+    ssize_t got = tf_csv_read(src, 0, h->buf, want);
+    if (got < 0)
+        return tf_error_set(err, TF_ERR_IO, "%s: cannot read the file", src->path);
+    h->len = (size_t)got;
+    h->complete = h->len >= src->size;
+    if (h->len >= 3 && memcmp(h->buf, "\xef\xbb\xbf", 3) == 0) {
+        h->bom = 3;
+        lay->has_bom = 1;
+    }
+    const char *b = h->buf;
+    size_t i = h->bom;
+    int style_known = 0;
+    strcpy(lay->line_end, "LF");
+    lay->term = '\n';
+    while (i < h->len && h->nlines < TF_CSV_HEAD_LINES) {
+        size_t s = i;
+        while (i < h->len && b[i] != '\n' && b[i] != '\r')
+            i++;
+        if (i >= h->len && !h->complete)
+            break; /* partial last line */
+        size_t e = i;
+        if (i < h->len) {
+            if (b[i] == '\r' && i + 1 < h->len && b[i + 1] == '\n')
+                i++;
+            else if (b[i] == '\r' && i + 1 >= h->len && !h->complete)
+                break; /* cannot tell CR from CRLF yet */
+            if (!style_known) {
+                style_known = 1;
+                if (b[e] == '\n') {
+                    strcpy(lay->line_end, "LF");
+                } else if (i > e) {
+                    strcpy(lay->line_end, "CRLF");
+                } else {
+                    strcpy(lay->line_end, "CR");
+                    lay->term = '\r';
+                }
+            }
+            i++;
+        }
+        h->start[h->nlines] = s;
+        h->length[h->nlines++] = e - s;
+    }
+    if (h->nlines == 0 && src->size > h->bom)
+        return tf_error_set(err, TF_ERR_DATA,
+                            "%s:1:1: expected a line end within the first %zu bytes, found a "
+                            "longer line (lines are limited to 1 MiB)",
+                            src->path, TF_CSV_HEAD_MAX);
+    lay->quotes = memchr(h->buf, '"', h->len) != NULL;
+    return TF_OK;
+}
+
+static int blank(const head *h, size_t i)
+{
+    for (size_t k = 0; k < h->length[i]; k++) {
+        char c = h->buf[h->start[i] + k];
+        if (c != ' ' && c != '\t')
+            return 0;
+    }
+    return 1;
+}
+
+/* ---- choosing delimiter and decimal mark ---- */
+
+typedef struct candidate {
+    char delim, decimal;
+} candidate;
+
+static const candidate candidates[] = {
+    {'\t', '.'}, {'\t', ','}, {';', '.'}, {';', ','}, {',', '.'}, {' ', '.'}, {' ', ','}};
+#define NCAND (sizeof candidates / sizeof candidates[0])
+
+/* Most common field count among numeric rows with at least min_fields fields;
+ * returns how many rows have it (0 when none). */
+static size_t score(const line_info *li, size_t n, size_t min_fields, size_t *mode)
+{
+    size_t best = 0, best_count = 0;
+    for (size_t i = 0; i < n; i++) {
+        if (!is_numeric_row(&li[i]) || li[i].fields < min_fields)
+            continue;
+        if (li[i].fields == best)
+            continue;
+        size_t count = 0;
+        for (size_t j = 0; j < n; j++)
+            count += is_numeric_row(&li[j]) && li[j].fields == li[i].fields;
+        if (count > best_count) {
+            best_count = count;
+            best = li[i].fields;
+        }
+        if (best_count * 2 > n)
+            break;
+    }
+    *mode = best;
+    return best_count;
+}
+
+/* ---- header names and units ---- */
+
+static void trim(const char **s, size_t *len)
+{
+    while (*len && isspace((unsigned char)**s)) {
+        (*s)++;
+        (*len)--;
+    }
+    while (*len && isspace((unsigned char)(*s)[*len - 1]))
+        (*len)--;
+}
+
+/* "v [kV]" -> name "v", unit "V", factor 1000; "i_load (A)" -> "i_load", "A", 1. */
+static void parse_column_name(const char *s, size_t len, size_t index, tf_csv_column *col)
+{
+    const char *unit = NULL;
+    size_t ulen = 0;
+    trim(&s, &len);
+    col->factor = 1.0;
+    col->unit[0] = '\0';
+    if (len >= 2 && (s[len - 1] == ')' || s[len - 1] == ']')) {
+        char open = s[len - 1] == ')' ? '(' : '[';
+        for (size_t k = len - 1; k-- > 0;)
+            if (s[k] == open) {
+                unit = s + k + 1;
+                ulen = len - k - 2;
+                len = k;
+                break;
+            }
+    }
+    trim(&s, &len);
+    if (len == 0)
+        snprintf(col->name, sizeof col->name, "col%zu", index + 1);
+    else
+        snprintf(col->name, sizeof col->name, "%.*s", (int)(len < 63 ? len : 63), s);
+    if (!unit)
+        return;
+    trim(&unit, &ulen);
+    if (ulen == 0 || ulen > 30)
+        return;
+    char text[40], base[TF_NAME_SIZE];
+    double factor;
+    snprintf(text, sizeof text, "1 %.*s", (int)ulen, unit);
+    if (ulen == 1 && unit[0] == '%') {
+        strcpy(col->unit, "%");
+    } else if (tf_parse_quantity(text, &factor, base, sizeof base) == 0 && base[0] &&
+               strlen(base) < TF_UNIT_SIZE && factor > 0) {
+        strcpy(col->unit, base);
+        col->factor = factor;
+    } else {
+        snprintf(col->unit, sizeof col->unit, "%.*s", (int)(ulen < 15 ? ulen : 15), unit);
+    }
+}
+
+static int named_like_time(const tf_csv_column *c)
+{
+    static const char *const names[] = {"t", "time", "timestamp", "zeit", "tiempo", "temps",
+                                        "seconds", "sec", NULL};
+    char low[TF_NAME_SIZE];
+    size_t k;
+    for (k = 0; c->name[k] && k + 1 < sizeof low; k++)
+        low[k] = (char)tolower((unsigned char)c->name[k]);
+    low[k] = '\0';
+    for (int i = 0; names[i]; i++)
+        if (strcmp(low, names[i]) == 0)
+            return 1;
+    if (strncmp(low, "time", 4) == 0 && (low[4] == '_' || low[4] == '-' || low[4] == ' ' ||
+                                         isdigit((unsigned char)low[4])))
+        return 1;
+    return strcmp(c->unit, "s") == 0;
+}
+
+/* Space-separated headers split "v [V]" in two: glue a unit field to its name. */
+static void merge_units(fieldset *fs)
+{
+    size_t w = 0;
+    for (size_t r = 0; r < fs->n; r++) {
+        const char *f = fs_get(fs, r);
+        if (w > 0 && (f[0] == '(' || f[0] == '[')) {
+            /* fields are stored back to back: turn the NUL between them into a space */
+            size_t prev_end = fs->off[w - 1] + fs->len[w - 1];
+            if (prev_end + 1 == fs->off[r]) {
+                fs->text[prev_end] = ' ';
+                fs->len[w - 1] += 1 + fs->len[r];
+                continue;
+            }
+        }
+        fs->off[w] = fs->off[r];
+        fs->len[w++] = fs->len[r];
+    }
+    fs->total -= fs->n - w;
+    fs->n = w;
+}
+
+static int header_ok(fieldset *fs, size_t ncols, int space_mode, char decimal)
+{
+    if (space_mode)
+        merge_units(fs);
+    if (!fits(fs, ncols) || fs->n != fs->total)
+        return 0;
+    for (size_t k = 0; k < ncols; k++)
+        if (field_kind(fs_get(fs, k), fs->len[k], decimal) == F_NUMBER)
+            return 0;
+    return 1;
+}
+
+/* ---- time column and the reference step ---- */
+
+static int cmp_double(const void *a, const void *b)
+{
+    double x = *(const double *)a, y = *(const double *)b;
+    return (x > y) - (x < y);
+}
+
+/* Times of the head's data rows (column col, after the unit factor) into t
+ * and their resolutions into q; returns how many. The printing model comes
+ * from these rows: fixed decimals when none has an exponent and all have the
+ * same number of decimals, else significant digits (the most any row shows). */
+static size_t head_times(const head *h, tf_csv_layout *lay, size_t first, size_t col,
+                         fieldset *fs, double *t, double *q, tf_num_text *nt)
+{
+    size_t n = 0;
+    for (size_t i = first; i < h->nlines; i++) {
+        if (blank(h, i))
+            continue;
+        if (split_line(h->buf + h->start[i], h->length[i], lay->delim, fs) != 0 ||
+            !fits(fs, lay->ncols) || fs->n <= col)
+            break;
+        const char *s = fs_get(fs, col);
+        const char *e;
+        double v;
+        if (tf_parse_double(s, fs->len[col], lay->decimal, &v, &e) != 0 ||
+            e != s + fs->len[col] || !isfinite(v))
+            break;
+        t[n] = v * lay->cols[col].factor;
+        tf_csv_scan_number(s, fs->len[col], lay->decimal, &nt[n]);
+        n++;
+    }
+    int fixed = n > 0;
+    int sig = 0;
+    for (size_t k = 0; k < n; k++) {
+        fixed &= !nt[k].has_exp && nt[k].frac == nt[0].frac;
+        if (tf_csv_sig_digits(&nt[k]) > sig)
+            sig = tf_csv_sig_digits(&nt[k]);
+    }
+    lay->time_sig = fixed ? 0 : sig;
+    for (size_t k = 0; k < n; k++)
+        q[k] = tf_csv_resolution(&nt[k], lay->time_sig) * lay->cols[col].factor;
+    return n;
+}
+
+/* Reference step: least squares over the leading run of steps that agree with
+ * the median step (a jump further on is then reported at its own line). */
+static double reference_step(const double *t, const double *q, size_t n, double *scratch)
+{
+    if (n < 2)
+        return 0;
+    for (size_t i = 1; i < n; i++)
+        scratch[i - 1] = t[i] - t[i - 1];
+    qsort(scratch, n - 1, sizeof *scratch, cmp_double);
+    double med = scratch[(n - 1) / 2];
+    size_t m = 1;
+    while (m < n && fabs(t[m] - t[m - 1] - med) <= 1.5 * (q[m] + q[m - 1]))
+        m++;
+    if (m < 3)
+        return m == 2 ? t[1] - t[0] : med;
+    double kbar = (double)(m - 1) / 2, tbar = 0, skt = 0, skk = 0;
+    for (size_t k = 0; k < m; k++)
+        tbar += t[k];
+    tbar /= (double)m;
+    for (size_t k = 0; k < m; k++) {
+        skt += ((double)k - kbar) * (t[k] - tbar);
+        skk += ((double)k - kbar) * ((double)k - kbar);
+    }
+    return skt / skk;
+}
+
+static tf_status find_time(const head *h, const tf_import_options *opt, tf_csv_layout *lay,
+                           size_t first, fieldset *fs, const tf_csv_source *src, tf_error *err)
+{
+    lay->time_col = -1;
+    for (size_t c = 0; c < lay->ncols && lay->header_line; c++)
+        if (named_like_time(&lay->cols[c])) {
+            lay->time_col = (int)c;
+            lay->time_named = 1;
+            break;
+        }
+    int given = opt && (opt->sample_rate_hz > 0 || opt->dt_s > 0);
+    double *t = malloc(3 * h->nlines * sizeof *t + sizeof *t);
+    tf_num_text *nt = malloc(h->nlines * sizeof *nt + sizeof *nt);
+    if (!t || !nt) {
+        free(t);
+        free(nt);
+        return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
+    }
+    double *q = t + h->nlines, *scratch = q + h->nlines;
+    size_t col = lay->time_col >= 0 ? (size_t)lay->time_col : 0;
+    size_t n = head_times(h, lay, first, col, fs, t, q, nt);
+    free(nt);
+    lay->head_rows = n;
+    if (lay->time_col < 0 && !given && lay->ncols >= 2 && n >= 2) {
+        size_t k = 1;
+        while (k < n && t[k] > t[k - 1])
+            k++;
+        if (k == n)
+            lay->time_col = 0;
+    }
+    if (lay->time_col >= 0) {
+        lay->t_ref = n ? t[0] : 0;
+        lay->d_ref = reference_step(t, q, n, scratch);
+        if (n < 2 && !h->complete) {
+            free(t);
+            return tf_error_set(err, TF_ERR_DATA,
+                                "%s:%zu:%zu: expected at least 2 data rows within the first "
+                                "%zu bytes, found %zu", src->path, lay->data_line, col + 1,
+                                TF_CSV_HEAD_MAX, n);
+        }
+    }
+    free(t);
+    return TF_OK;
+}
+
+/* ---- putting it together ---- */
+
+static tf_status no_data_error(const head *h, const tf_csv_source *src, tf_error *err)
+{
+    size_t last = 0;
+    for (size_t i = 0; i < h->nlines; i++)
+        if (!blank(h, i))
+            last = i + 1;
+    if (last == 0)
+        return tf_error_set(err, TF_ERR_DATA,
+                            "%s:1:1: expected a header or rows of numbers, found an empty file",
+                            src->path);
+    char ex[64];
+    tf_error_excerpt(ex, sizeof ex, h->buf + h->start[last - 1],
+                     (unsigned)h->length[last - 1], TF_CSV_EXCERPT);
+    return tf_error_set(err, TF_ERR_DATA,
+                        "%s:%zu:1: expected rows of numbers after line %zu, found %s "
+                        "(the last line is '%s')",
+                        src->path, last + 1, last, h->complete ? "the end of the file" : "none",
+                        ex);
+}
+
+static tf_status choose(head *h, tf_csv_layout *lay, fieldset *fs, const tf_csv_source *src,
+                        tf_error *err)
+{
+    line_info *li = malloc(h->nlines * sizeof *li);
+    if (!li)
+        return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
+    size_t best = 0, best_mode = 0;
+    int chosen = -1;
+    for (size_t c = 0; c < NCAND; c++) {
+        for (size_t i = 0; i < h->nlines; i++)
+            classify(h, i, candidates[c].delim, candidates[c].decimal, fs, &li[i]);
+        size_t mode, s = score(li, h->nlines, 2, &mode);
+        if (s > best) {
+            best = s;
+            best_mode = mode;
+            chosen = (int)c;
+        }
+    }
+    if (chosen < 0) { /* a single column? */
+        for (size_t i = 0; i < h->nlines; i++)
+            classify(h, i, ',', '.', fs, &li[i]);
+        size_t mode;
+        if (score(li, h->nlines, 1, &mode) > 0 && mode == 1) {
+            chosen = 4;
+            best_mode = 1;
+        }
+    }
+    free(li);
+    if (chosen < 0)
+        return no_data_error(h, src, err);
+    lay->delim = candidates[chosen].delim;
+    lay->decimal = candidates[chosen].decimal;
+    lay->space_mode = lay->delim == ' ';
+    lay->ncols = best_mode;
+    return TF_OK;
+}
+
+/* Header: the first line of ncols non-numeric fields followed (after blank
+ * lines) by a numeric row of ncols fields. Without one, data starts at the
+ * first numeric row of ncols fields. Returns the index of the first data line. */
+static size_t find_header(const head *h, tf_csv_layout *lay, fieldset *fs, size_t *header)
+{
+    line_info li;
+    size_t first_data = h->nlines;
+    *header = h->nlines;
+    for (size_t i = 0; i < h->nlines; i++) {
+        if (blank(h, i))
+            continue;
+        classify(h, i, lay->delim, lay->decimal, fs, &li);
+        if (is_numeric_row(&li) && li.fields == lay->ncols) {
+            if (first_data == h->nlines)
+                first_data = i;
+            break;
+        }
+        if (split_line(h->buf + h->start[i], h->length[i], lay->delim, fs) != 0 ||
+            !header_ok(fs, lay->ncols, lay->space_mode, lay->decimal))
+            continue;
+        size_t j = i + 1;
+        while (j < h->nlines && blank(h, j))
+            j++;
+        if (j >= h->nlines)
+            continue;
+        classify(h, j, lay->delim, lay->decimal, fs, &li);
+        if (is_numeric_row(&li) && li.fields == lay->ncols) {
+            *header = i;
+            return j;
+        }
+    }
+    return first_data;
+}
+
+static tf_status fill_columns(const head *h, tf_csv_layout *lay, size_t header, fieldset *fs,
+                              tf_error *err)
+{
+    lay->cols = calloc(lay->ncols, sizeof *lay->cols);
+    if (!lay->cols)
+        return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
+    int have = header < h->nlines &&
+               split_line(h->buf + h->start[header], h->length[header], lay->delim, fs) == 0;
+    if (have && lay->space_mode)
+        merge_units(fs);
+    for (size_t c = 0; c < lay->ncols; c++) {
+        if (have && c < fs->n)
+            parse_column_name(fs_get(fs, c), fs->len[c], c, &lay->cols[c]);
+        else
+            parse_column_name("", 0, c, &lay->cols[c]);
+    }
+    return TF_OK;
+}
+
+tf_status tf_csv_detect(const tf_csv_source *src, const tf_import_options *opt,
+                        tf_csv_layout *lay, tf_capture *cap, tf_error *err)
+{
+    head *h = calloc(1, sizeof *h);
+    fieldset *fs = calloc(1, sizeof *fs);
+    tf_status st = TF_OK;
+    memset(lay, 0, sizeof *lay);
+    lay->time_col = -1;
+    if (!h || !fs) {
+        st = tf_error_set(err, TF_ERR_NOMEM, "out of memory");
+        goto done;
+    }
+    if ((st = read_head(src, h, lay, err)) != TF_OK)
+        goto done;
+    if ((st = choose(h, lay, fs, src, err)) != TF_OK)
+        goto done;
+    size_t header, first = find_header(h, lay, fs, &header);
+    if (first >= h->nlines) {
+        st = no_data_error(h, src, err);
+        goto done;
+    }
+    lay->header_line = header < h->nlines ? header + 1 : 0;
+    lay->data_line = first + 1;
+    lay->data_offset = h->start[first];
+    size_t meta_end = header < h->nlines ? header : first;
+    for (size_t i = 0; i < meta_end; i++) {
+        if (blank(h, i))
+            continue;
+        if (tf_capture_add_metadata(cap, h->buf + h->start[i], h->length[i]) != TF_OK) {
+            st = tf_error_set(err, TF_ERR_NOMEM, "out of memory");
+            goto done;
+        }
+        lay->metadata_lines++;
+    }
+    if ((st = fill_columns(h, lay, header, fs, err)) != TF_OK)
+        goto done;
+    st = find_time(h, opt, lay, first, fs, src, err);
+done:
+    if (h)
+        free(h->buf);
+    if (fs)
+        free(fs->text);
+    free(h);
+    free(fs);
+    return st;
+}
+
+void tf_csv_layout_free(tf_csv_layout *lay)
+{
+    free(lay->cols);
+    lay->cols = NULL;
+}

@@ -1,0 +1,137 @@
+/* Private pieces of the CSV importer shared by import_csv.c, csv_detect.c and csv_time.c. */
+#ifndef TF_CSV_INTERNAL_H
+#define TF_CSV_INTERNAL_H
+
+#include <stddef.h>
+#include <sys/types.h>
+#include <tankfit/import.h>
+
+/* Longest field (and line, for the first lines looked at) accepted: a bad file
+ * such as a 1 GB single line costs at most this much memory per parser. */
+#define TF_CSV_FIELD_MAX ((size_t)1 << 20)
+/* Bytes read from the start of the file to detect the dialect. */
+#define TF_CSV_HEAD_MAX ((size_t)1 << 20)
+/* Lines of the head examined for delimiter, header and metadata. */
+#define TF_CSV_HEAD_LINES 2000
+/* Columns a file may have. */
+#define TF_CSV_COLS_MAX 2000
+/* Fields per row beyond which a row is reported without counting further. */
+#define TF_CSV_FIELDS_MAX ((size_t)1 << 20)
+/* Characters of a field quoted in an error message. */
+#define TF_CSV_EXCERPT 40
+
+/* Where the bytes come from: a file descriptor (pread) or memory. */
+typedef struct tf_csv_source {
+    const char *path;              /* name used in messages */
+    int fd;                        /* -1 for memory */
+    const unsigned char *mem;
+    size_t size;
+} tf_csv_source;
+
+/* Read up to len bytes at off; returns bytes read (0 at end) or -1 on error. */
+ssize_t tf_csv_read(const tf_csv_source *src, size_t off, void *buf, size_t len);
+
+/* One column of the file as detected. */
+typedef struct tf_csv_column {
+    char name[TF_NAME_SIZE];
+    char unit[TF_UNIT_SIZE];
+    double factor;                 /* from a prefixed unit in the header ("kV" -> 1000) */
+} tf_csv_column;
+
+/* The layout found by tf_csv_detect. */
+typedef struct tf_csv_layout {
+    char delim;                    /* ',' ';' '\t' or ' ' (runs of spaces) */
+    char decimal;                  /* '.' or ',' */
+    int space_mode;                /* delim is ' ': runs of blanks separate fields */
+    int has_bom;
+    char line_end[8];              /* "LF", "CRLF", "CR" */
+    char term;                     /* the byte that ends each line: '\n' or '\r' */
+    size_t ncols;                  /* fields per data row */
+    tf_csv_column *cols;           /* ncols entries (malloc'd) */
+    size_t header_line;            /* 1-based; 0 when none */
+    size_t data_line;              /* 1-based line of the first data row */
+    size_t data_offset;            /* byte offset of that line */
+    size_t metadata_lines;         /* non-blank lines before the header/data */
+    int time_col;                  /* -1 when none */
+    int time_named;                /* the time column was recognised by name or unit */
+    double t_ref, d_ref;           /* first time value and a reference step from the head;
+                                      d_ref 0: take the first step */
+    int time_sig;                  /* significant digits of the time column; 0: fixed decimals */
+    size_t head_rows;              /* data rows seen in the head */
+    int quotes;                    /* a '"' appears in the head */
+} tf_csv_layout;
+
+/* Detect the dialect, header, metadata and time column from the first bytes.
+ * Metadata lines go to cap. On failure sets err (TF_ERR_DATA with position). */
+tf_status tf_csv_detect(const tf_csv_source *src, const tf_import_options *opt,
+                        tf_csv_layout *lay, tf_capture *cap, tf_error *err);
+
+void tf_csv_layout_free(tf_csv_layout *lay);
+
+/* tf_import_csv on bytes in memory (name is used in messages): the entry
+ * point of the fuzz harness and of tests that need no file. */
+tf_status tf_csv_import_memory(const char *name, const void *data, size_t len,
+                               const tf_import_options *opt, tf_capture **out, tf_error *err);
+
+/* The printed form of a number: digits after the decimal mark, exponent,
+ * decimal exponent of the first significant digit. */
+typedef struct tf_num_text {
+    long frac, exp, lead;
+    int nonzero, has_exp;
+} tf_num_text;
+void tf_csv_scan_number(const char *s, size_t len, char decimal, tf_num_text *nt);
+
+/* Printing resolution: one unit in the last printed digit ("1.2340e-05" ->
+ * 1e-9, "12" -> 1), or, when sig_digits > 0 (the column is printed with that
+ * many significant digits, trailing zeros possibly dropped as by %g), one unit
+ * in the last of those digits if that is coarser. Zero has resolution 0. */
+double tf_csv_resolution(const tf_num_text *nt, int sig_digits);
+
+/* Significant digits printed (0 for zero). */
+int tf_csv_sig_digits(const tf_num_text *nt);
+
+/* realloc that refuses blocks above TF_CSV_FIELD_MAX (libcsv's field buffer). */
+void *tf_csv_capped_realloc(void *p, size_t n);
+
+/* ---- time base (csv_time.c) ---- */
+
+#define TF_TIME_BLOCK 256          /* rows per residual block */
+
+typedef struct tf_time_block {
+    double hi, lo;                 /* max(u - q/2), min(u + q/2) over the block */
+    double hi_t, lo_t;             /* the time values where they occur */
+    size_t hi_line, lo_line;
+    size_t k0, k1;                 /* first and last local index */
+} tf_time_block;
+
+/* Streaming accumulator of one parser thread: u_k = t_k - (t_first + k * d_ref). */
+typedef struct tf_time_acc {
+    double d_ref;
+    size_t n;                      /* values added */
+    double t_first, q_first;
+    size_t line_first;
+    double t_prev, q_prev;
+    double q_max, q_min;
+    double sum_u, sum_ku;
+    tf_time_block *blocks;
+    size_t nblocks, cap_blocks;
+} tf_time_acc;
+
+/* Prepare for up to max_rows values. TF_ERR_NOMEM on failure. */
+tf_status tf_time_acc_init(tf_time_acc *a, double d_ref, size_t max_rows, tf_error *err);
+void tf_time_acc_free(tf_time_acc *a);
+
+/* Add the value t printed as text (resolution q) from line. Returns 0, or -1
+ * after writing "expected ..., found ..." (without position) into msg when the
+ * step from the previous value is not the uniform step. */
+int tf_time_acc_add(tf_time_acc *a, double t, double q, size_t line, char *msg,
+                    size_t msg_size);
+
+/* Combine the accumulators of consecutive parts (in file order), check the step across part boundaries and every
+ * residual of the least-squares line against the printing resolution, and set
+ * t0/dt. On failure sets err with the line; col is the time column (1-based). */
+tf_status tf_time_finish(const tf_time_acc *acc, size_t parts, const char *path, size_t col,
+                         double *t0, double *dt, double *resolution,
+                         tf_error *err);
+
+#endif

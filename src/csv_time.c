@@ -1,0 +1,257 @@
+/* CSV time base: streaming least-squares fit of t0/dt, checked against the printing resolution. */
+#include "csv_internal.h"
+
+#include <float.h>
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+void tf_csv_scan_number(const char *s, size_t len, char decimal, tf_num_text *nt)
+{
+    size_t i = 0;
+    long e = 0, pos = 0, lead = 0;
+    int eneg = 0;
+    memset(nt, 0, sizeof *nt);
+    if (i < len && (s[i] == '+' || s[i] == '-'))
+        i++;
+    size_t int0 = i;
+    while (i < len && s[i] >= '0' && s[i] <= '9')
+        i++;
+    long nint = (long)(i - int0);
+    for (size_t k = int0; k < i; k++) /* exponent of each integer digit: nint-1 ... 0 */
+        if (s[k] != '0' && !nt->nonzero) {
+            nt->nonzero = 1;
+            lead = nint - 1 - (long)(k - int0);
+        }
+    if (i < len && s[i] == decimal)
+        for (i++; i < len && s[i] >= '0' && s[i] <= '9'; i++) {
+            pos--;
+            if (s[i] != '0' && !nt->nonzero) {
+                nt->nonzero = 1;
+                lead = pos;
+            }
+        }
+    nt->frac = -pos;
+    if (i < len && (s[i] == 'e' || s[i] == 'E')) {
+        nt->has_exp = 1;
+        i++;
+        if (i < len && (s[i] == '+' || s[i] == '-'))
+            eneg = s[i++] == '-';
+        for (; i < len && s[i] >= '0' && s[i] <= '9'; i++)
+            if (e < 100000)
+                e = e * 10 + (s[i] - '0');
+    }
+    nt->exp = eneg ? -e : e;
+    nt->lead = lead + nt->exp;
+}
+
+static double pow10i(long k)
+{
+    static const double t[] = {1e-40, 1e-39, 1e-38, 1e-37, 1e-36, 1e-35, 1e-34, 1e-33, 1e-32, 1e-31, 1e-30, 1e-29, 1e-28, 1e-27, 1e-26, 1e-25, 1e-24, 1e-23, 1e-22, 1e-21, 1e-20, 1e-19, 1e-18, 1e-17, 1e-16, 1e-15, 1e-14, 1e-13, 1e-12, 1e-11, 1e-10, 1e-9, 1e-8, 1e-7, 1e-6, 1e-5, 1e-4, 1e-3, 1e-2, 1e-1, 1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22, 1e23, 1e24, 1e25, 1e26, 1e27, 1e28, 1e29, 1e30, 1e31, 1e32, 1e33, 1e34, 1e35, 1e36, 1e37, 1e38, 1e39, 1e40};
+    if (k >= -40 && k <= 40)
+        return t[k + 40];
+    return pow(10.0, (double)k);
+}
+
+double tf_csv_resolution(const tf_num_text *nt, int sig_digits)
+{
+    if (!nt->nonzero) /* zero: %g and %e print an exact zero, whatever the digits */
+        return 0;
+    long last = nt->exp - nt->frac; /* exponent of the last printed digit */
+    if (sig_digits > 0 && nt->lead - sig_digits + 1 > last)
+        last = nt->lead - sig_digits + 1;
+    return pow10i(last);
+}
+
+int tf_csv_sig_digits(const tf_num_text *nt)
+{
+    return nt->nonzero ? (int)(nt->lead - (nt->exp - nt->frac) + 1) : 0;
+}
+
+tf_status tf_time_acc_init(tf_time_acc *a, double d_ref, size_t max_rows, tf_error *err)
+{
+    memset(a, 0, sizeof *a);
+    a->d_ref = d_ref;
+    a->cap_blocks = max_rows / TF_TIME_BLOCK + 2;
+    a->blocks = malloc(a->cap_blocks * sizeof *a->blocks);
+    if (!a->blocks)
+        return tf_error_set(err, TF_ERR_NOMEM, "out of memory for the time base of %zu rows",
+                            max_rows);
+    return TF_OK;
+}
+
+void tf_time_acc_free(tf_time_acc *a)
+{
+    free(a->blocks);
+    a->blocks = NULL;
+}
+
+/* Largest deviation of one step from the uniform step that rounding to the
+ * printed digits can explain: each value is within q/2 of the true time, so a
+ * step is within (q_a + q_b)/2; 1.5x that leaves room for the reference step's
+ * own small error, plus a few ulps of the values themselves. */
+static double step_tolerance(double qa, double qb, double t)
+{
+    return 0.75 * (qa + qb) + 8.0 * DBL_EPSILON * fabs(t);
+}
+
+int tf_time_acc_add(tf_time_acc *a, double t, double q, size_t line, char *msg,
+                    size_t msg_size)
+{
+    size_t k = a->n;
+    if (k == 0) {
+        a->t_first = t;
+        a->q_first = q;
+        a->line_first = line;
+        a->q_max = a->q_min = q;
+    } else {
+        double d = t - a->t_prev;
+        double tol = step_tolerance(q, a->q_prev, t);
+        if (k == 1 && a->d_ref == 0 && d > 0)
+            a->d_ref = d; /* no reference from the head: the first step is it */
+        if (!(d > 0)) {
+            snprintf(msg, msg_size, "expected a time later than %.10g s, found %.10g s", a->t_prev,
+                     t);
+            return -1;
+        }
+        if (fabs(d - a->d_ref) > tol) {
+            snprintf(msg, msg_size,
+                     "expected a time step of %.6g s (within the printing resolution, %.3g s), "
+                     "found a step of %.6g s (%.10g s after %.10g s)",
+                     a->d_ref, tol, d, t, a->t_prev);
+            return -1;
+        }
+        if (q > a->q_max)
+            a->q_max = q;
+        if (q < a->q_min)
+            a->q_min = q;
+    }
+    double u = t - (a->t_first + (double)k * a->d_ref);
+    a->sum_u += u;
+    a->sum_ku += (double)k * u;
+    size_t b = k / TF_TIME_BLOCK;
+    if (b >= a->cap_blocks) { /* cannot happen when max_rows was honest */
+        snprintf(msg, msg_size, "expected at most %zu rows, found more",
+                 a->cap_blocks * TF_TIME_BLOCK);
+        return -1;
+    }
+    if (b == a->nblocks) {
+        tf_time_block *nb = &a->blocks[a->nblocks++];
+        nb->hi = -HUGE_VAL;
+        nb->lo = HUGE_VAL;
+        nb->k0 = k;
+    }
+    tf_time_block *blk = &a->blocks[b];
+    blk->k1 = k;
+    if (u - 0.5 * q > blk->hi) {
+        blk->hi = u - 0.5 * q;
+        blk->hi_t = t;
+        blk->hi_line = line;
+    }
+    if (u + 0.5 * q < blk->lo) {
+        blk->lo = u + 0.5 * q;
+        blk->lo_t = t;
+        blk->lo_line = line;
+    }
+    a->t_prev = t;
+    a->q_prev = q;
+    a->n++;
+    return 0;
+}
+
+/* Check every block of one part against the fitted line alpha + beta*K (in u
+ * space); returns the first offending block's line (0 when all pass). */
+static size_t check_blocks(const tf_time_acc *a, size_t base, double shift, double alpha,
+                           double beta, double half_q, double *bad_t, double *bad_off)
+{
+    for (size_t b = 0; b < a->nblocks; b++) {
+        const tf_time_block *blk = &a->blocks[b];
+        double l0 = alpha + beta * (double)(base + blk->k0);
+        double l1 = alpha + beta * (double)(base + blk->k1);
+        double lmin = l0 < l1 ? l0 : l1, lmax = l0 < l1 ? l1 : l0;
+        double over = blk->hi + shift - lmin;   /* > half_q: too late */
+        double under = blk->lo + shift - lmax;  /* < -half_q: too early */
+        size_t line = 0;
+        if (over > half_q) {
+            line = blk->hi_line;
+            *bad_t = blk->hi_t;
+            *bad_off = over;
+        }
+        if (under < -half_q && (!line || blk->lo_line < line)) {
+            line = blk->lo_line;
+            *bad_t = blk->lo_t;
+            *bad_off = under;
+        }
+        if (line)
+            return line;
+    }
+    return 0;
+}
+
+tf_status tf_time_finish(const tf_time_acc *acc, size_t parts, const char *path, size_t col,
+                         double *t0, double *dt, double *resolution, tf_error *err)
+{
+    size_t n = 0, first = parts;
+    for (size_t p = 0; p < parts; p++) {
+        if (acc[p].n && first == parts)
+            first = p;
+        n += acc[p].n;
+    }
+    if (n < 2)
+        return tf_error_set(err, TF_ERR_DATA,
+                            "%s:%zu:%zu: expected at least 2 data rows to find the sample "
+                            "period from the time column, found %zu",
+                            path, first < parts ? acc[first].line_first : 1, col, n);
+    double T0 = acc[first].t_first, D = acc[first].d_ref;
+    double su = 0, sku = 0, qmax = 0;
+    size_t base = 0;
+    const tf_time_acc *prev = NULL;
+    for (size_t p = first; p < parts; p++) {
+        const tf_time_acc *a = &acc[p];
+        if (!a->n)
+            continue;
+        if (prev) { /* the step across the boundary between two parser threads */
+            double d = a->t_first - prev->t_prev;
+            double tol = step_tolerance(a->q_first, prev->q_prev, a->t_first);
+            if (!(d > 0) || fabs(d - D) > tol)
+                return tf_error_set(err, TF_ERR_DATA,
+                                    "%s:%zu:%zu: expected a time step of %.6g s (within the "
+                                    "printing resolution, %.3g s), found a step of %.6g s "
+                                    "(%.10g s after %.10g s)",
+                                    path, a->line_first, col, D, tol, d, a->t_first,
+                                    prev->t_prev);
+        }
+        double c = a->t_first - T0 - (double)base * D;
+        double nn = (double)a->n, bb = (double)base;
+        su += a->sum_u + nn * c;
+        sku += bb * a->sum_u + a->sum_ku + c * (bb * nn + nn * (nn - 1) / 2);
+        if (a->q_max > qmax)
+            qmax = a->q_max;
+        base += a->n;
+        prev = a;
+    }
+    /* least squares of u against the index K = 0..n-1 (closed-form sums of K) */
+    double N = (double)n, kbar = (N - 1) / 2, skk = N * (N * N - 1) / 12;
+    double beta = (sku - kbar * su) / skk;
+    double alpha = su / N - beta * kbar;
+    base = 0;
+    for (size_t p = first; p < parts; p++) {
+        const tf_time_acc *a = &acc[p];
+        if (!a->n)
+            continue;
+        double c = a->t_first - T0 - (double)base * D, bad_t = 0, bad_off = 0;
+        size_t line = check_blocks(a, base, c, alpha, beta, 0.5 * qmax, &bad_t, &bad_off);
+        if (line)
+            return tf_error_set(err, TF_ERR_DATA,
+                                "%s:%zu:%zu: expected times on a uniform grid t0 + k*dt "
+                                "(t0 = %.10g s, dt = %.10g s) within the printing resolution "
+                                "%.3g s, found %.10g s, %.3g s off the grid",
+                                path, line, col, T0 + alpha, D + beta, qmax, bad_t, bad_off);
+        base += a->n;
+    }
+    *t0 = T0 + alpha;
+    *dt = D + beta;
+    *resolution = qmax;
+    return TF_OK;
+}
