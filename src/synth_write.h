@@ -138,9 +138,10 @@ tf_status tf_sw_wav_write(tf_sw_wav *w, const float *const ch[], size_t n, tf_er
 
 tf_status tf_sw_wav_finish(tf_sw_wav *w, tf_error *err);
 
-/* Text of the sidecar "<file>.tfscale" for a layout: comment lines, then one line
- * per channel "name unit full_scale" (unit "1" for a gate). Returns a malloc'd
- * string or NULL when out of memory. */
+/* Text of the sidecar "<file>.tfscale" for a layout (format: docs/import-wav.md):
+ * comment lines, "t0 = <time of the first sample>", then one line per channel
+ * "name unit full_scale" (unit "1" for a gate). Returns a malloc'd string or NULL
+ * when out of memory. */
 char *tf_sw_sidecar_text(const tf_sw_layout *lay);
 
 /* ---- what to write for a design (synth_write_plan.c) ---------------------------- */

@@ -33,14 +33,11 @@ tf_status tf_synth_output_channels(const tf_design *d, unsigned *mask, tf_error 
     for (int c = 0; c < TF_SYN_NCHAN; c++)
         if (d->chan[c].enabled)
             want |= BIT(c);
+    /* channels the topology lacks are skipped: tf_design_init enables all eight and
+     * the design parser rejects an explicit g3.enabled on a half-bridge */
+    want &= have;
     if (!want)
         want = have;
-    for (int c = 0; c < TF_SYN_NCHAN; c++)
-        if ((want & BIT(c)) && !(have & BIT(c)))
-            return tf_error_set(err, TF_ERR_USAGE, "[capture] %s.enabled: a %s stage has no "
-                                "channel %s", tf_synth_channel_name((tf_synth_channel)c),
-                                tf_topology_name(d->topology),
-                                tf_synth_channel_name((tf_synth_channel)c));
     *mask = want;
     return TF_OK;
 }

@@ -125,7 +125,8 @@ char *tf_sw_sidecar_text(const tf_sw_layout *lay)
         return NULL;
     size_t len = (size_t)snprintf(s, cap,
                                   "# tankfit scale file: one line per WAV channel, in order\n"
-                                  "# name unit full_scale (physical value of digital full scale)\n");
+                                  "# name unit full_scale (physical value of digital full scale)\n"
+                                  "t0 = %.17g\n", lay->t0_s);
     for (size_t c = 0; c < lay->nchan && len < cap; c++)
         len += (size_t)snprintf(s + len, cap - len, "%s %s %.17g\n", lay->name[c],
                                 lay->unit[c][0] ? lay->unit[c] : "1", lay->full_scale[c]);

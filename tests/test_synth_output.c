@@ -480,10 +480,14 @@ static void test_synth_output_plan_channels(void **state)
     d->chan[TF_SYN_G1].enabled = 1;
     assert_int_equal(tf_sw_plan_make(d, 0, 0, &p, &err), TF_OK);
     assert_int_equal(p.nchan, 2);
-    d->chan[TF_SYN_G3].enabled = 1;
-    assert_int_equal(tf_sw_plan_make(d, 0, 0, &p, &err), TF_ERR_USAGE);
-    assert_non_null(strstr(err.msg, "g3"));
+    d->chan[TF_SYN_G3].enabled = 1; /* a single stage has no g3: skipped */
+    assert_int_equal(tf_sw_plan_make(d, 0, 0, &p, &err), TF_OK);
+    assert_int_equal(p.nchan, 2);
     d->chan[TF_SYN_G3].enabled = 0;
+    d->topology = TF_TOPO_UNKNOWN;
+    assert_int_equal(tf_sw_plan_make(d, 0, 0, &p, &err), TF_ERR_USAGE);
+    assert_non_null(strstr(err.msg, "topology"));
+    d->topology = TF_TOPO_SINGLE;
     d->chan[TF_SYN_I_LOAD].skew_s = 2e-3;
     assert_int_equal(tf_sw_plan_make(d, 0, 0, &p, &err), TF_ERR_USAGE);
     assert_non_null(strstr(err.msg, "i_load.skew"));

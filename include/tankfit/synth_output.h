@@ -49,9 +49,9 @@ tf_status tf_synth_write_opts(const tf_design *d, const char *out_path, const ch
  * v_c, v_ak1 and g1 (single, ring-down), g1..g2 (half-bridge), g1..g4 (full-bridge). */
 unsigned tf_synth_topology_channels(tf_topology t);
 
-/* Bit mask of the channels written for design d: those with enabled set, or all
- * the topology has when none is set. TF_ERR_USAGE when an enabled channel does
- * not exist in the topology. */
+/* Bit mask of the channels written for design d: those with enabled set that the
+ * topology has (others are skipped), or all the topology has when none is set.
+ * TF_ERR_USAGE when the topology is unknown. */
 tf_status tf_synth_output_channels(const tf_design *d, unsigned *mask, tf_error *err);
 
 /* Unit of a simulated channel: "A", "V", or "" for gate channels (0/1). */
