@@ -4,6 +4,7 @@
 #define TANKFIT_DESIGN_H
 
 #include <stddef.h>
+#include <jansson.h>
 #include <tankfit/error.h>
 #include <tankfit/types.h>
 
@@ -35,7 +36,8 @@ typedef struct tf_capture_channel_cfg {
 /* A per-column scale factor from [channels] (e.g. a current probe's A/V). */
 typedef struct tf_design_scale {
     char column[64];
-    double factor;
+    double factor;               /* multiplies the recorded value (a 100 A/V probe: 100) */
+    char unit[8];                /* as written: "A/V", "V/V" or "" (plain number) */
 } tf_design_scale;
 
 /* Every value in SI base units; NAN marks a numeric key that was not given
@@ -95,6 +97,7 @@ typedef struct tf_design {
     int time_digits;              /* significant digits of the printed time column */
     int value_digits;             /* significant digits of printed channel values */
     unsigned long long seed;
+    int adc_bits;                 /* default ADC bits of every channel (0 = none given) */
     tf_capture_channel_cfg chan[TF_SYN_NCHAN];
 
     /* [schedule] (simulator): piecewise-linear R(t), L(t) */
@@ -104,19 +107,61 @@ typedef struct tf_design {
     double sched_l_h[TF_DESIGN_MAX_SCHEDULE];    /* NAN: keep [tank] inductance */
 } tf_design;
 
-/* Fill d with defaults (all numeric keys NAN or their documented default). */
+/* Fill d with the documented defaults (docs/design-file.md): every numeric key
+ * not given is NAN (a limit that stays NAN is not evaluated), text keys are "",
+ * topology TF_TOPO_UNKNOWN, capacitor series, mode TF_MODE_ANY; [capture]
+ * sample_rate 10 MHz, duration 2 ms, start 0, csv, time_digits 9, value_digits 6,
+ * seed 1, no noise, range, skew or quantisation, every channel enabled. The
+ * drops stay NAN (the simulator alone treats a missing drop as 0 V). d must not be
+ * NULL. */
 void tf_design_init(tf_design *d);
 
-/* Parse a design file. Errors are TF_ERR_NOINPUT (cannot open) or TF_ERR_DATA
- * with "path:line: ..." (unknown key with a did-you-mean suggestion, wrong
- * dimension such as "capacitance = 20 uH: expects farads", bad number,
- * missing required key). The struct is large: allocate it, do not put it on a
- * small stack. */
+/* Read and parse the design file at path (UTF-8 INI, at most 1 MiB) into d, which
+ * is initialised first (no need to call tf_design_init). d->path is set to path.
+ * Errors: TF_ERR_NOINPUT when the file cannot be opened (or is a directory),
+ * TF_ERR_IO on a read error, TF_ERR_DATA with "path:line:column: ..." for any
+ * mistake in the text: syntax, unknown section or key (with a did-you-mean
+ * suggestion), duplicate key or section, wrong dimension ("capacitance expects
+ * farads (F), found henries (H) in '20 uH'"), bad number, bad choice, a value out
+ * of range, list entries not increasing, too many entries, keys that contradict
+ * the topology. On error d holds the defaults again. The struct is large
+ * (about 60 kB): allocate it, do not put it on a small stack. Whether the keys a
+ * use needs are present is checked separately by tf_design_validate. */
 tf_status tf_design_load(const char *path, tf_design *d, tf_error *err);
 
-/* Same, from text in memory (name is used in messages). */
+/* Same as tf_design_load, from len bytes of text in memory (need not be
+ * NUL-terminated; text may be NULL when len is 0). name (not NULL) is used in
+ * messages and copied to d->path. TF_ERR_USAGE when text is NULL with len > 0. */
 tf_status tf_design_parse(const char *text, size_t len, const char *name, tf_design *d,
                           tf_error *err);
+
+/* Check that d holds what a use needs, naming the section and key of the first
+ * thing missing or inconsistent ("design.ini: [tank] capacitance: required to
+ * simulate the design, not given"). for_synth non-zero: everything the
+ * simulator needs for the topology (topology, [tank] capacitance, inductance and
+ * resistance, dc_link or precharge, firing_frequency or firing_times, the reset
+ * choke of a single stage, turnoff_time, skews within +/- 1 ms, at least two
+ * samples). for_synth zero (acceptance checks): each limit that is given has the
+ * design values it is compared against (q_tolerance needs capacitance,
+ * inductance and resistance, turnoff_ratio_min needs turnoff_time, ...).
+ * Returns TF_OK or TF_ERR_DATA. */
+tf_status tf_design_validate(const tf_design *d, int for_synth, tf_error *err);
+
+/* The design as a JSON object for records: one object per section, the keys as
+ * written in design files, numbers in SI base units (percent as fractions), keys
+ * that were not given left out, and a "units" object mapping "section.key" to the
+ * unit of every number present. Per-channel [capture] settings appear under
+ * "capture" as e.g. "v_out.range". NULL only when out of memory. The caller owns
+ * the result (json_decref). */
+json_t *tf_design_to_json(const tf_design *d);
+
+/* Unit of a key's value as stored in tf_design and written by tf_design_to_json:
+ * "F", "H", "ohm", "s", "Hz", "V", "A", "S/s" (sample_rate), "" for ratios,
+ * probe factors, gate levels and counts; NULL when the section has no such key or
+ * the key holds text or a choice (topology, mode, column names ...). The
+ * per-channel keys take their channel's unit ("capture", "i_load.noise" -> "A");
+ * "channels", "scale.ANY" -> "". [schedule] point -> NULL (three values). */
+const char *tf_design_key_unit(const char *section, const char *key);
 
 /* Name of a simulator channel ("i_load", "v_out", "v_c", "v_ak1", "g1".."g4"). */
 const char *tf_synth_channel_name(tf_synth_channel c);
