@@ -141,7 +141,12 @@ tf_status tf_sw_plan_make(const tf_design *d, int noiseless, int wav, tf_sw_plan
         const char *name = tf_synth_channel_name((tf_synth_channel)c);
         size_t i = p->nchan++;
         p->chan[i] = (tf_synth_channel)c;
-        st = tf_sw_scope_init(&p->scope[i], cfg, name, d->seed, (uint64_t)c, noiseless, err);
+        tf_capture_channel_cfg cc = *cfg;
+        /* a gate is a logic level: a design-wide adc_bits does not quantise it unless
+         * the gate channel has a range of its own */
+        if (is_gate((tf_synth_channel)c) && !(cc.range > 0))
+            cc.bits = 0;
+        st = tf_sw_scope_init(&p->scope[i], &cc, name, d->seed, (uint64_t)c, noiseless, err);
         if (st != TF_OK)
             return st;
         double skew = isnan(cfg->skew_s) ? 0.0 : cfg->skew_s;
