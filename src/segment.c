@@ -1,15 +1,266 @@
-/* Segmenter: PLACEHOLDER until the segmenter lands; reports itself unavailable. */
+/* Segmenter: noise band, zero crossings, lobes, devices, cycles and mode of the current. */
 #include <tankfit/segment.h>
 
+#include <math.h>
+#include <stdint.h>
 #include <stdlib.h>
+#include <string.h>
 
-void tf_segment_options_init(tf_segment_options *o) { o->topology = TF_TOPO_UNKNOWN; o->band_k = 0; }
+#include "segment_internal.h"
+
+void tf_segment_options_init(tf_segment_options *o)
+{
+    memset(o, 0, sizeof *o);
+    o->topology = TF_TOPO_UNKNOWN;
+    o->band_k = 0;
+}
+
+double seg_lsb(const float *x, size_t n)
+{
+    if (n < 16)
+        return 0;
+    size_t m = n - 1 < 4096 ? n - 1 : 4096, nz = 0;
+    double lsb = INFINITY;
+    for (size_t j = 0; j < m; j++) {
+        size_t k = (size_t)((double)j * (double)(n - 1) / (double)m);
+        double d = fabs((double)x[k + 1] - (double)x[k]);
+        if (d > 0 && d < lsb)
+            lsb = d;
+    }
+    if (!isfinite(lsb))
+        return 0;
+    size_t whole = 0;
+    for (size_t j = 0; j < m; j++) {
+        size_t k = (size_t)((double)j * (double)(n - 1) / (double)m);
+        double d = fabs((double)x[k + 1] - (double)x[k]);
+        if (d == 0)
+            continue;
+        nz++;
+        double q = d / lsb;
+        if (fabs(q - floor(q + 0.5)) < 1e-3 * q + 1e-6)
+            whole++;
+    }
+    return nz >= 32 && whole >= 0.95 * (double)nz ? lsb : 0;
+}
+
+tf_status seg_find_clipping(const float *x, size_t n, double lsb, const seg_vec *runs,
+                            seg_vec *clips)
+{
+    if (!runs->n)
+        return TF_OK;
+    float hi = x[0], lo = x[0];
+    for (size_t k = 1; k < n; k++) {
+        hi = x[k] > hi ? x[k] : hi;
+        lo = x[k] < lo ? x[k] : lo;
+    }
+    const seg_run *r = runs->data;
+    for (size_t j = 0; j < runs->n; j++) {
+        float ext = r[j].sign > 0 ? hi : lo;
+        if (x[r[j].ipk] != ext)
+            continue;
+        size_t a = r[j].ipk, b = a;
+        while (a > r[j].i0 && x[a - 1] == ext)
+            a--;
+        while (b < r[j].i1 && x[b + 1] == ext)
+            b++;
+        /* a quantised sine stays at its top code for about 2 sqrt(2 lsb / A) / w samples */
+        double dur = r[j].t_end - r[j].t_start, w = dur > 0 ? M_PI / dur : 0;
+        double flat = lsb > 0 && w > 0 ? 2.0 * sqrt(2.0 * lsb / fabs((double)ext)) / w : 0;
+        if ((double)(b - a + 1) < fmax(3.0, 1.5 * flat + 1.0))
+            continue;
+        seg_clip *c = seg_vec_push(clips);
+        if (!c)
+            return TF_ERR_NOMEM;
+        c->i0 = a;
+        c->i1 = b;
+    }
+    return TF_OK;
+}
+
+/* Rising edges of the gate channels, as firing instants in the current's index units. */
+static tf_status gate_firings(const tf_capture *cap, const tf_roles *roles, seg_vec *fire,
+                              int *ngates)
+{
+    const tf_channel *ci = &cap->ch[roles->current];
+    *ngates = 0;
+    for (int g = 0; g < 4; g++) {
+        if (roles->gate[g] < 0)
+            continue;
+        const tf_channel *c = &cap->ch[roles->gate[g]];
+        const float *y = c->samples;
+        float lo = y[0], hi = y[0];
+        for (size_t k = 1; k < cap->n; k++) {
+            lo = y[k] < lo ? y[k] : lo;
+            hi = y[k] > hi ? y[k] : hi;
+        }
+        if (!(hi - lo > 0))
+            continue;
+        double thr = 0.5 * ((double)lo + (double)hi), shift = 0;
+        if (c->skew_known || ci->skew_known)
+            shift = (c->skew_s - ci->skew_s) / cap->dt_s;
+        size_t before = fire->n;
+        for (size_t k = 1; k < cap->n; k++) {
+            if (!(y[k - 1] < thr && y[k] >= thr))
+                continue;
+            double *f = seg_vec_push(fire);
+            if (!f)
+                return TF_ERR_NOMEM;
+            f[0] = (double)(k - 1) + (thr - y[k - 1]) / ((double)y[k] - y[k - 1]) - shift;
+            f[1] = g;
+        }
+        if (fire->n > before)
+            (*ngates)++;
+    }
+    return TF_OK;
+}
+
+static int cmp_fire(const void *a, const void *b)
+{
+    double x = *(const double *)a, y = *(const double *)b;
+    return (x > y) - (x < y);
+}
+
+static int is_zero_kind(seg_bkind k) { return k == SEG_B_DEAD || k == SEG_B_TOUCH; }
+
+void seg_refine_boundaries(const seg_input *in, seg_vec *runs)
+{
+    seg_run *r = runs->data;
+    for (size_t j = 0; j < runs->n; j++) {
+        double dur = r[j].t_end - r[j].t_start;
+        if (!(dur > 8) || r[j].i1 < r[j].i0 + 10)
+            continue;
+        double w = M_PI / dur, z;
+        if (is_zero_kind(r[j].k_start)) {
+            size_t k1 = r[j].k_end == SEG_B_DIRECT || r[j].k_end == SEG_B_FIRING
+                            ? (size_t)floor(r[j].t_end) - 1 : r[j].i1 - 1;
+            if (seg_model_zero(in->x, r[j].i0 + 1, k1, in->clips, in->nclips, r[j].t_start, w,
+                               0.0, &z) == 0 &&
+                z <= (double)r[j].i0 + 0.5 && fabs(z - r[j].t_start) < 0.2 * dur) {
+                r[j].t_start = z;
+                r[j].start_model = 1;
+            }
+        }
+        if (is_zero_kind(r[j].k_end)) {
+            size_t k0 = r[j].k_start == SEG_B_DIRECT || r[j].k_start == SEG_B_FIRING
+                            ? (size_t)ceil(r[j].t_start) + 1 : r[j].i0 + 1;
+            if (seg_model_zero(in->x, k0, r[j].i1 - 1, in->clips, in->nclips, r[j].t_end, w,
+                               0.0, &z) == 0 &&
+                z >= (double)r[j].i1 - 0.5 && fabs(z - r[j].t_end) < 0.2 * dur) {
+                r[j].t_end = z;
+                r[j].end_model = 1;
+            }
+        }
+    }
+}
+
 tf_status tf_segment_run(const tf_capture *cap, const tf_roles *roles,
                          const tf_segment_options *opt, tf_segment_result **out, tf_error *err)
 {
-    (void)cap; (void)roles; (void)opt;
     *out = NULL;
-    return tf_error_set(err, TF_ERR_UNAVAILABLE, "the segmenter is not built yet");
+    if (!cap || !roles || roles->current < 0 || (size_t)roles->current >= cap->nchan)
+        return tf_error_set(err, TF_ERR_USAGE, "segmenter: no current channel given");
+    const tf_channel *ch = &cap->ch[roles->current];
+    if (cap->n < 16)
+        return tf_error_set(err, TF_ERR_DATA,
+                            "%s: expected at least 16 samples of the current, found %zu",
+                            cap->path[0] ? cap->path : "capture", cap->n);
+    if (!(cap->dt_s > 0))
+        return tf_error_set(err, TF_ERR_DATA, "segmenter: the sample period must be positive");
+    const float *x = ch->samples;
+    size_t n = cap->n;
+    double k = opt && opt->band_k > 0 ? opt->band_k : SEG_BAND_K;
+    tf_topology topo = opt ? opt->topology : TF_TOPO_UNKNOWN;
+
+    tf_segment_result *r = calloc(1, sizeof *r);
+    if (!r)
+        return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
+    double sigma = tf_stats_noise_sigma(x, n);
+    if (!isfinite(sigma) || sigma < 0)
+        sigma = seg_noise_sigma(x, n);
+    double peak = 0;
+    for (size_t i = 0; i < n; i++)
+        peak = fabs((double)x[i]) > peak ? fabs((double)x[i]) : peak;
+    double lsb = ch->stats_valid && ch->stats.lsb > 0 ? ch->stats.lsb : seg_lsb(x, n);
+    /* floors: a noiseless record still needs a band above rounding and one code step */
+    double band = fmax(k * sigma, fmax(lsb, 1e-3 * peak));
+    r->noise_sigma_a = sigma;
+    r->band_a = band;
+    if (!(peak > 2 * band)) {
+        free(r);
+        return tf_error_set(err, TF_ERR_DATA,
+                            "current channel '%s': expected lobes above the noise band "
+                            "(%.3g), found a peak of %.3g", ch->name, band, peak);
+    }
+
+    seg_vec exc, runs, clips, fire;
+    seg_vec_init(&exc, sizeof(seg_exc));
+    seg_vec_init(&runs, sizeof(seg_run));
+    seg_vec_init(&clips, sizeof(seg_clip));
+    seg_vec_init(&fire, 2 * sizeof(double));
+    tf_status st = seg_scan(x, n, band, &exc);
+    if (st == TF_OK)
+        st = seg_runs_from_excursions(x, n, band, &exc, &runs);
+    seg_vec_free(&exc);
+    if (st == TF_OK)
+        st = seg_find_clipping(x, n, lsb, &runs, &clips);
+    int ngates = 0;
+    if (st == TF_OK)
+        st = gate_firings(cap, roles, &fire, &ngates);
+    double *fire_t = NULL;
+    int *fire_g = NULL;
+    if (st == TF_OK && fire.n) {
+        qsort(fire.data, fire.n, 2 * sizeof(double), cmp_fire);
+        fire_t = malloc(fire.n * sizeof *fire_t);
+        fire_g = malloc(fire.n * sizeof *fire_g);
+        if (!fire_t || !fire_g)
+            st = TF_ERR_NOMEM;
+        else
+            for (size_t i = 0; i < fire.n; i++) {
+                fire_t[i] = ((double *)fire.data)[2 * i];
+                fire_g[i] = (int)((double *)fire.data)[2 * i + 1];
+            }
+    }
+    seg_input in = {cap, roles, x, n, band, clips.data, clips.n, fire_t, fire_g, fire.n, ngates};
+    if (st == TF_OK && runs.n == 0)
+        st = tf_error_set(err, TF_ERR_DATA, "current channel '%s': no conduction lobe found",
+                          ch->name);
+    else if (st == TF_OK) {
+        seg_refine_boundaries(&in, &runs);
+        st = seg_attribute(&in, &runs, topo, r);
+    }
+    if (st == TF_OK && fire.n) {
+        r->firings_s = malloc(fire.n * sizeof *r->firings_s);
+        if (!r->firings_s)
+            st = TF_ERR_NOMEM;
+        else {
+            r->nfirings = fire.n;
+            for (size_t i = 0; i < fire.n; i++)
+                r->firings_s[i] = tf_capture_time(cap, 0) + fire_t[i] * cap->dt_s;
+        }
+    }
+    seg_vec_free(&runs);
+    seg_vec_free(&clips);
+    seg_vec_free(&fire);
+    free(fire_t);
+    free(fire_g);
+    if (st != TF_OK) {
+        if (st == TF_ERR_NOMEM)
+            tf_error_set(err, st, "out of memory");
+        tf_segment_free(r);
+        return st;
+    }
+    *out = r;
+    return TF_OK;
 }
-void tf_segment_free(tf_segment_result *r) { free(r); }
-json_t *tf_segment_to_json(const tf_segment_result *r) { (void)r; return json_object(); }
+
+void tf_segment_free(tf_segment_result *r)
+{
+    if (!r)
+        return;
+    free(r->lobes);
+    free(r->bursts);
+    free(r->cycles);
+    free(r->anomalies);
+    free(r->firings_s);
+    free(r);
+}

@@ -26,7 +26,11 @@ typedef struct tf_lobe {
     int clipped;                /* touches clipped current samples: peak not trusted */
     int start_model, end_model; /* boundary taken from the burst's damped-sine model */
     int end_by_firing;          /* ended by the next firing (overlapping), not a zero */
+    int partial;                /* cut by the start or end of the record */
 } tf_lobe;
+
+/* tf_lobe.burst of a lobe that belongs to no burst (e.g. a partial first lobe). */
+#define TF_NO_BURST ((size_t)-1)
 
 /* One burst: a thyristor lobe and the diode lobe that follows it (or a whole
  * ring-down), the unit the fitter works on. */
@@ -51,6 +55,8 @@ typedef struct tf_cycle {
     double overlap_s;           /* diode time cut by the next firing (overlapping) */
     tf_device thyristor;
     size_t lobe_thyristor, lobe_diode; /* indices into lobes; lobe_diode = (size_t)-1 if none */
+    double firing_voltage_s;    /* overlapping: the output-voltage step found near the
+                                   split (NAN when no voltage channel or not found) */
 } tf_cycle;
 
 typedef struct tf_anomaly {
@@ -77,6 +83,11 @@ typedef struct tf_segment_result {
     tf_anomaly *anomalies;  size_t nanomalies;
     double *firings_s;      size_t nfirings;    /* firing instants (gates or inferred) */
     tf_stat3 output_frequency_hz, diode_s, turnoff_available_s;
+    tf_stat3 thyristor_s, dead_s, overlap_s;
+    char topology_evidence[256];  /* how the topology was chosen */
+    double damped_frequency_hz;   /* rough fd from the lobes (pi / lobe duration, or the
+                                     overlapping split model); NAN when unknown */
+    size_t clipped_stretches;     /* clipped stretches of the current found */
 } tf_segment_result;
 
 void tf_segment_options_init(tf_segment_options *o);

@@ -1,0 +1,671 @@
+/* Segmenter, second stage: topology, overlapping splits, devices, bursts, cycles, mode. */
+#include "segment_internal.h"
+
+#include <math.h>
+#include <stdint.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include <gsl/gsl_sort.h>
+#include <gsl/gsl_statistics_double.h>
+
+static int zero_kind(seg_bkind k) { return k == SEG_B_DEAD || k == SEG_B_TOUCH; }
+
+static double median_of(double *v, size_t n)
+{
+    if (!n)
+        return NAN;
+    gsl_sort(v, 1, n);
+    return gsl_stats_median_from_sorted_data(v, 1, n);
+}
+
+/* ---- topology ------------------------------------------------------------------- */
+
+static tf_topology infer_topology(const seg_input *in, const seg_run *r, size_t nr, char *ev,
+                                  size_t evsize)
+{
+    if (in->ngates >= 3) {
+        snprintf(ev, evsize, "%d gate channels fire: full-bridge", in->ngates);
+        return TF_TOPO_FULL_BRIDGE;
+    }
+    if (in->ngates == 2) {
+        snprintf(ev, evsize, "2 gate channels fire: half-bridge");
+        return TF_TOPO_HALF_BRIDGE;
+    }
+    size_t same = 0, opp = 0, starts = 0;
+    for (size_t j = 0; j + 1 < nr; j++) {
+        if (!zero_kind(r[j].k_end))
+            continue;
+        if (r[j].sign == r[j + 1].sign)
+            same++;
+        else
+            opp++;
+    }
+    for (size_t j = 0; j < nr; j++)
+        starts += zero_kind(r[j].k_start) || (j == 0 && r[j].k_start == SEG_B_EDGE);
+    if (in->ngates == 1 && in->nfire > 1) {
+        snprintf(ev, evsize, "one gate channel fires: single switch");
+        return TF_TOPO_SINGLE;
+    }
+    if ((in->ngates == 1 && in->nfire == 1) || (starts <= 1 && nr >= 4 && same + opp <= 1)) {
+        double first = r[0].pk, last = r[nr - 1].pk;
+        if (in->nfire == 1 || last < 0.7 * first) {
+            snprintf(ev, evsize, "one firing followed by %zu alternating decaying lobes: "
+                     "ring-down", nr);
+            return TF_TOPO_RING_DOWN;
+        }
+    }
+    if (same + opp == 0) {
+        snprintf(ev, evsize, "no dead zone and lobes of steady size: bridge in overlapping "
+                 "operation (half-bridge assumed; give --topology full-bridge for a full bridge)");
+        return TF_TOPO_HALF_BRIDGE;
+    }
+    if (same >= opp) {
+        snprintf(ev, evsize, "%zu of %zu dead zones lie between lobes of the same sign "
+                 "(diode, then the other thyristor): half-bridge assumed (give --topology "
+                 "full-bridge for a full bridge)", same, same + opp);
+        return TF_TOPO_HALF_BRIDGE;
+    }
+    snprintf(ev, evsize, "%zu of %zu dead zones lie between a negative and a positive lobe "
+             "(diode, then the same thyristor again): single switch", opp, same + opp);
+    return TF_TOPO_SINGLE;
+}
+
+/* ---- overlapping splits --------------------------------------------------------- */
+
+typedef struct lobe_rec {
+    double t0, t1;
+    seg_bkind k0, k1;
+    int sign, m0, m1;
+    double w;          /* model w of a split stretch (rad/sample), 0 when none */
+} lobe_rec;
+
+static int push_rec(seg_vec *v, const lobe_rec *l)
+{
+    lobe_rec *p = seg_vec_push(v);
+    if (!p)
+        return -1;
+    *p = *l;
+    return 0;
+}
+
+/* A firing strictly inside (a, b), index units; -1 when none. */
+static double firing_inside(const seg_input *in, double a, double b)
+{
+    for (size_t i = 0; i < in->nfire; i++)
+        if (in->fire[i] > a + 1 && in->fire[i] < b - 1)
+            return in->fire[i];
+    return -1;
+}
+
+static tf_status split_runs(const seg_input *in, const seg_run *r, size_t nr, tf_topology topo,
+                            seg_vec *recs, double *w_out)
+{
+    int bridge = topo == TF_TOPO_HALF_BRIDGE || topo == TF_TOPO_FULL_BRIDGE;
+    /* w from lobes that are whole pieces (start and end at a zero of their own piece) */
+    double *tmp = malloc((nr + 1) * sizeof *tmp);
+    if (!tmp)
+        return TF_ERR_NOMEM;
+    size_t nw = 0;
+    for (size_t j = 0; j < nr; j++)
+        if ((zero_kind(r[j].k_start) && r[j].k_end == SEG_B_DIRECT) ||
+            (r[j].k_start == SEG_B_DIRECT && zero_kind(r[j].k_end)))
+            tmp[nw++] = r[j].t_end - r[j].t_start;
+    double wpiece = nw ? M_PI / median_of(tmp, nw) : 0;
+    *w_out = wpiece;
+    /* candidate stretches: start at a crossing, end at a crossing (or the record end) */
+    int *cand = calloc(nr ? nr : 1, sizeof *cand);
+    if (!cand) {
+        free(tmp);
+        return TF_ERR_NOMEM;
+    }
+    if (bridge)
+        for (size_t j = 1; j < nr; j++) {
+            if (r[j].k_start != SEG_B_DIRECT || r[j].k_end != SEG_B_DIRECT)
+                continue;
+            double len = r[j].t_end - r[j].t_start;
+            if (firing_inside(in, r[j].t_start, r[j].t_end) >= 0 || !(wpiece > 0) ||
+                len > 1.15 * M_PI / wpiece)
+                cand[j] = 1;
+        }
+    /* the tank's w for stretches without a whole piece: searched on a few stretches */
+    double wsplit = wpiece;
+    if (!(wsplit > 0)) {
+        size_t m = 0;
+        for (size_t j = 0; j < nr && m < 9; j++) {
+            if (!cand[j])
+                continue;
+            double w = 0, s;
+            if (seg_split_pieces(in->x, (size_t)ceil(r[j].t_start) + 1,
+                                 (size_t)floor(r[j].t_end) - 1, r[j].t_start, r[j].t_end, &w,
+                                 0.0, &s) == 0)
+                tmp[m++] = w;
+        }
+        wsplit = m ? median_of(tmp, m) : 0;
+        *w_out = wsplit;
+    }
+    free(tmp);
+    for (size_t j = 0; j < nr; j++) {
+        lobe_rec a = {r[j].t_start, r[j].t_end, r[j].k_start, r[j].k_end, r[j].sign,
+                      r[j].start_model, r[j].end_model, 0};
+        double s = -1, w = wsplit;
+        if (cand[j]) {
+            s = firing_inside(in, r[j].t_start, r[j].t_end);
+            if (s < 0 && w > 0 &&
+                seg_split_pieces(in->x, (size_t)ceil(r[j].t_start) + 1,
+                                 (size_t)floor(r[j].t_end) - 1, r[j].t_start, r[j].t_end, &w,
+                                 0.0, &s) != 0)
+                s = -1;
+        }
+        if (s < 0) {
+            if (push_rec(recs, &a) != 0) {
+                free(cand);
+                return TF_ERR_NOMEM;
+            }
+            continue;
+        }
+        lobe_rec b = a;
+        a.t1 = s;
+        a.k1 = SEG_B_FIRING;
+        a.m1 = 0;
+        a.w = w;
+        b.t0 = s;
+        b.k0 = SEG_B_FIRING;
+        b.m0 = 0;
+        b.w = w;
+        if (push_rec(recs, &a) != 0 || push_rec(recs, &b) != 0) {
+            free(cand);
+            return TF_ERR_NOMEM;
+        }
+    }
+    free(cand);
+    return TF_OK;
+}
+
+/* ---- lobes ---------------------------------------------------------------------- */
+
+static void lobe_stats(const seg_input *in, tf_lobe *L, double t0, double t1)
+{
+    const tf_capture *cap = in->cap;
+    size_t i0 = (size_t)ceil(t0 < 0 ? 0 : t0), i1 = (size_t)ceil(t1);
+    if (i1 > in->n)
+        i1 = in->n;
+    if (i1 <= i0)
+        i1 = i0 + 1 <= in->n ? i0 + 1 : i0;
+    double q = 0, s2 = 0, best = -1;
+    size_t kp = i0;
+    for (size_t k = i0; k < i1; k++) {
+        double v = in->x[k];
+        q += v;
+        s2 += v * v;
+        double a = v * L->sign;
+        if (a > best) {
+            best = a;
+            kp = k;
+        }
+    }
+    double tp = (double)kp, vp = in->x[kp];
+    if (kp > i0 && kp + 1 < i1) {
+        double ym = in->x[kp - 1], y0 = in->x[kp], yp = in->x[kp + 1], den = ym - 2 * y0 + yp;
+        if (den != 0) {
+            double d = 0.5 * (ym - yp) / den;
+            if (fabs(d) <= 1) {
+                tp += d;
+                vp = y0 - 0.25 * (ym - yp) * d;
+            }
+        }
+    }
+    L->i0 = i0;
+    L->i1 = i1;
+    L->start_s = tf_capture_time(cap, 0) + t0 * cap->dt_s;
+    L->end_s = tf_capture_time(cap, 0) + t1 * cap->dt_s;
+    L->peak_s = tf_capture_time(cap, 0) + tp * cap->dt_s;
+    L->peak_a = vp;
+    L->charge_c = q * cap->dt_s;
+    L->rms_a = i1 > i0 ? sqrt(s2 / (double)(i1 - i0)) : 0;
+    for (size_t c = 0; c < in->nclips; c++)
+        if (in->clips[c].i0 < i1 && in->clips[c].i1 >= i0)
+            L->clipped = 1;
+}
+
+/* ---- anomalies ------------------------------------------------------------------ */
+
+static tf_status add_anomaly(seg_vec *an, double time_s, const char *kind, const char *fmt, ...)
+    __attribute__((format(printf, 4, 5)));
+
+#include <stdarg.h>
+static tf_status add_anomaly(seg_vec *an, double time_s, const char *kind, const char *fmt, ...)
+{
+    tf_anomaly *a = seg_vec_push(an);
+    if (!a)
+        return TF_ERR_NOMEM;
+    a->time_s = time_s;
+    snprintf(a->kind, sizeof a->kind, "%s", kind);
+    va_list ap;
+    va_start(ap, fmt);
+    vsnprintf(a->text, sizeof a->text, fmt, ap);
+    va_end(ap);
+    return TF_OK;
+}
+
+static tf_device thyristor_for(tf_topology topo, int sign)
+{
+    switch (topo) {
+    case TF_TOPO_SINGLE: return TF_DEV_T1;
+    case TF_TOPO_HALF_BRIDGE: return sign > 0 ? TF_DEV_T1 : TF_DEV_T2;
+    case TF_TOPO_FULL_BRIDGE: return sign > 0 ? TF_DEV_T1T2 : TF_DEV_T3T4;
+    default: return TF_DEV_RING;
+    }
+}
+
+static tf_device diode_of(tf_device t)
+{
+    switch (t) {
+    case TF_DEV_T1: return TF_DEV_D1;
+    case TF_DEV_T2: return TF_DEV_D2;
+    case TF_DEV_T1T2: return TF_DEV_D1D2;
+    case TF_DEV_T3T4: return TF_DEV_D3D4;
+    default: return TF_DEV_UNKNOWN;
+    }
+}
+
+static tf_device gate_device(tf_topology topo, int gate)
+{
+    if (topo == TF_TOPO_FULL_BRIDGE)
+        return gate < 2 ? TF_DEV_T1T2 : TF_DEV_T3T4;
+    if (topo == TF_TOPO_HALF_BRIDGE)
+        return gate == 0 ? TF_DEV_T1 : TF_DEV_T2;
+    return TF_DEV_T1;
+}
+
+/* Index of the firing nearest t within tol (index units), or SIZE_MAX. */
+static size_t firing_near(const seg_input *in, double t, double tol)
+{
+    size_t best = SIZE_MAX;
+    double bd = tol;
+    for (size_t i = 0; i < in->nfire; i++) {
+        double d = fabs(in->fire[i] - t);
+        if (d <= bd) {
+            bd = d;
+            best = i;
+        }
+    }
+    return best;
+}
+
+static tf_status attribute_devices(const seg_input *in, tf_topology topo, tf_lobe *L,
+                                   const lobe_rec *rec, size_t nl, seg_vec *an)
+{
+    const tf_capture *cap = in->cap;
+    tf_status st = TF_OK;
+    /* the thyristor sign of a single switch: the usual sign of lobes rising from zero */
+    int tsign = 1;
+    if (topo == TF_TOPO_SINGLE) {
+        long vote = 0;
+        for (size_t j = 0; j < nl; j++)
+            if (zero_kind(rec[j].k0))
+                vote += rec[j].sign;
+        tsign = vote < 0 ? -1 : 1;
+    }
+    unsigned char *used = in->nfire ? calloc(in->nfire, 1) : NULL;
+    if (in->nfire && !used)
+        return TF_ERR_NOMEM;
+    for (size_t j = 0; j < nl && st == TF_OK; j++) {
+        tf_lobe *l = &L[j];
+        double ts = l->start_s;
+        if (topo == TF_TOPO_RING_DOWN) {
+            l->device = TF_DEV_RING;
+            continue;
+        }
+        int tpos = zero_kind(rec[j].k0) || rec[j].k0 == SEG_B_FIRING;
+        const tf_lobe *p = j ? &L[j - 1] : NULL;
+        if (rec[j].k0 == SEG_B_EDGE) {
+            /* cut by the record start: a thyristor lobe if a diode lobe follows it */
+            int next_is_diode = j + 1 < nl && rec[j + 1].k0 == SEG_B_DIRECT &&
+                                rec[j + 1].k1 != SEG_B_DIRECT;
+            tpos = rec[j].k1 == SEG_B_DIRECT && next_is_diode;
+            if (!tpos) {
+                l->device = diode_of(thyristor_for(topo, topo == TF_TOPO_SINGLE ? tsign
+                                                                                : -l->sign));
+                continue;
+            }
+        }
+        if (tpos) {
+            if (topo == TF_TOPO_SINGLE && l->sign != tsign) {
+                l->device = TF_DEV_UNKNOWN;
+                st = add_anomaly(an, ts, "out-of-sequence", "a %s lobe rises from zero where "
+                                 "the thyristor conducts %s", l->sign > 0 ? "positive" : "negative",
+                                 tsign > 0 ? "positively" : "negatively");
+                continue;
+            }
+            l->device = thyristor_for(topo, l->sign);
+            if (in->nfire && rec[j].k0 != SEG_B_EDGE) {
+                double tol = fmax(3.0, 0.03 * (rec[j].t1 - rec[j].t0));
+                size_t f = firing_near(in, rec[j].t0, tol);
+                if (f == SIZE_MAX)
+                    st = add_anomaly(an, ts, "commutation-failure", "%s conducts without a "
+                                     "firing (no gate edge within %.3g s)",
+                                     tf_device_name(l->device), tol * cap->dt_s);
+                else {
+                    for (size_t q = 0; q < in->nfire; q++)
+                        if (fabs(in->fire[q] - in->fire[f]) <= tol)
+                            used[q] = 1; /* a diagonal pair fires two gates at once */
+                    tf_device g = gate_device(topo, in->fire_gate[f]);
+                    if (g != l->device)
+                        st = add_anomaly(an, ts, "out-of-sequence", "gate %d fired but the "
+                                         "current's sign belongs to %s", in->fire_gate[f] + 1,
+                                         tf_device_name(l->device));
+                }
+            }
+            continue;
+        }
+        /* starts at a crossing: the diode of the thyristor before it */
+        if (p && tf_device_is_thyristor(p->device) && p->sign != l->sign) {
+            l->device = diode_of(p->device);
+            continue;
+        }
+        if (p && !tf_device_is_thyristor(p->device) && p->device != TF_DEV_UNKNOWN &&
+            p->sign != l->sign && (topo == TF_TOPO_SINGLE ? l->sign == tsign : 1)) {
+            /* current reverses again at the end of a diode interval: the thyristor
+             * regained forward voltage too early and conducts without a firing */
+            l->device = thyristor_for(topo, l->sign);
+            st = add_anomaly(an, ts, "commutation-failure", "%s conducts again straight after "
+                             "%s's interval of %.4g s, without a firing",
+                             tf_device_name(l->device), tf_device_name(p->device),
+                             p->end_s - p->start_s);
+            continue;
+        }
+        l->device = TF_DEV_UNKNOWN;
+        st = add_anomaly(an, ts, "out-of-sequence", "a %s lobe follows %s without a zero "
+                         "pause or firing", l->sign > 0 ? "positive" : "negative",
+                         p ? tf_device_name(p->device) : "the record start");
+    }
+    for (size_t f = 0; f < in->nfire && st == TF_OK; f++) {
+        double t = in->fire[f];
+        if (used[f] || t < 2 || t > (double)in->n - 3)
+            continue;
+        /* a firing that started nothing: the current did not follow the gate */
+        st = add_anomaly(an, tf_capture_time(cap, 0) + t * cap->dt_s, "missing-firing",
+                         "gate %d fired but no conduction lobe started", in->fire_gate[f] + 1);
+    }
+    free(used);
+    return st;
+}
+
+/* ---- cycles, timing, mode ------------------------------------------------------- */
+
+static void stat3(double *v, size_t n, tf_stat3 *s)
+{
+    size_t m = 0;
+    for (size_t i = 0; i < n; i++)
+        if (isfinite(v[i]))
+            v[m++] = v[i];
+    s->count = m;
+    if (!m) {
+        s->min = s->median = s->max = NAN;
+        return;
+    }
+    gsl_sort(v, 1, m);
+    s->min = v[0];
+    s->max = v[m - 1];
+    s->median = gsl_stats_median_from_sorted_data(v, 1, m);
+}
+
+static tf_status build_cycles(const seg_input *in, tf_lobe *L, const lobe_rec *rec, size_t nl,
+                              double wsplit, seg_vec *cyc)
+{
+    const double dt = in->cap->dt_s;
+    for (size_t j = 0; j < nl; j++) {
+        if (!tf_device_is_thyristor(L[j].device) || rec[j].k0 == SEG_B_EDGE ||
+            rec[j].k1 == SEG_B_EDGE)
+            continue;
+        tf_cycle *c = seg_vec_push(cyc);
+        if (!c)
+            return TF_ERR_NOMEM;
+        c->start_s = L[j].start_s;
+        c->thyristor = L[j].device;
+        c->lobe_thyristor = j;
+        c->lobe_diode = (size_t)-1;
+        c->thyristor_s = L[j].end_s - L[j].start_s;
+        c->diode_s = c->turnoff_available_s = c->dead_s = c->overlap_s = NAN;
+        c->period_s = c->frequency_hz = NAN;
+        c->firing_voltage_s = NAN;
+        if (j + 1 < nl && L[j + 1].device == diode_of(L[j].device) && rec[j + 1].k1 != SEG_B_EDGE) {
+            const tf_lobe *d = &L[j + 1];
+            c->lobe_diode = j + 1;
+            c->diode_s = d->end_s - d->start_s;
+            /* forward voltage returns at the diode's natural end, or at the opposite
+             * firing when that cuts the diode interval short */
+            c->turnoff_available_s = c->diode_s;
+            c->overlap_s = 0;
+            if (rec[j + 1].k1 == SEG_B_FIRING) {
+                double w = rec[j + 1].w > 0 ? rec[j + 1].w : wsplit;
+                c->overlap_s = w > 0 ? fmax(0, M_PI / w * dt - c->diode_s) : NAN;
+                c->dead_s = 0;
+            } else if (j + 2 < nl) {
+                c->dead_s = fmax(0, L[j + 2].start_s - d->end_s);
+            }
+        }
+        for (size_t q = j + 1; q < nl; q++)
+            if (L[q].device == L[j].device && rec[q].k0 != SEG_B_EDGE) {
+                c->period_s = L[q].start_s - L[j].start_s;
+                c->frequency_hz = 1.0 / c->period_s;
+                break;
+            }
+    }
+    return TF_OK;
+}
+
+static void decide_mode(tf_segment_result *r, const lobe_rec *rec)
+{
+    size_t dead = 0, touch = 0, fire = 0, tot = 0;
+    double *dv = malloc((r->ncycles + 1) * sizeof *dv);
+    size_t nd = 0;
+    for (size_t i = 0; i < r->ncycles; i++) {
+        const tf_cycle *c = &r->cycles[i];
+        if (c->lobe_diode == (size_t)-1)
+            continue;
+        seg_bkind k = rec[c->lobe_diode].k1;
+        if (k == SEG_B_EDGE)
+            continue;
+        tot++;
+        if (k == SEG_B_DEAD) {
+            dead++;
+            if (dv && isfinite(c->dead_s))
+                dv[nd++] = c->dead_s;
+        } else if (k == SEG_B_TOUCH)
+            touch++;
+        else if (k == SEG_B_FIRING)
+            fire++;
+    }
+    double med = dv ? median_of(dv, nd) : NAN;
+    free(dv);
+    if (r->topology == TF_TOPO_RING_DOWN) {
+        r->mode = TF_MODE_UNKNOWN;
+        snprintf(r->mode_evidence, sizeof r->mode_evidence,
+                 "ring-down: one free oscillation, no firing sequence");
+        return;
+    }
+    if (!tot) {
+        r->mode = TF_MODE_UNKNOWN;
+        snprintf(r->mode_evidence, sizeof r->mode_evidence,
+                 "no complete thyristor-diode pair in the record");
+        return;
+    }
+    if (fire * 2 > tot) {
+        r->mode = TF_MODE_OVERLAPPING;
+        snprintf(r->mode_evidence, sizeof r->mode_evidence,
+                 "%zu of %zu diode intervals are cut short by the next firing (slope break "
+                 "inside a same-sign stretch)", fire, tot);
+    } else if (dead * 2 > tot) {
+        r->mode = TF_MODE_NON_OVERLAPPING;
+        snprintf(r->mode_evidence, sizeof r->mode_evidence,
+                 "%zu of %zu diode intervals end at a current zero followed by a dead zone "
+                 "(median %.4g s)", dead, tot, med);
+    } else if (touch * 2 > tot) {
+        r->mode = TF_MODE_CONTINUOUS;
+        snprintf(r->mode_evidence, sizeof r->mode_evidence,
+                 "%zu of %zu diode intervals end at a current zero where the next thyristor "
+                 "takes over at once (no dead zone)", touch, tot);
+    } else {
+        r->mode = TF_MODE_UNKNOWN;
+        snprintf(r->mode_evidence, sizeof r->mode_evidence,
+                 "mixed: %zu with dead zone, %zu continuous, %zu overlapping of %zu", dead,
+                 touch, fire, tot);
+    }
+}
+
+static tf_status period_anomalies(tf_segment_result *r, seg_vec *an)
+{
+    double *v = malloc((r->ncycles + 1) * sizeof *v);
+    if (!v)
+        return TF_ERR_NOMEM;
+    size_t m = 0;
+    for (size_t i = 0; i < r->ncycles; i++)
+        if (isfinite(r->cycles[i].period_s))
+            v[m++] = r->cycles[i].period_s;
+    double med = median_of(v, m);
+    free(v);
+    for (size_t i = 0; i < r->ncycles && m >= 3; i++) {
+        const tf_cycle *c = &r->cycles[i];
+        if (isfinite(c->period_s) && c->period_s > 1.6 * med)
+            if (add_anomaly(an, c->start_s + med, "missing-firing", "%s was not fired: "
+                            "%.4g s to its next firing, median period %.4g s",
+                            tf_device_name(c->thyristor), c->period_s, med) != TF_OK)
+                return TF_ERR_NOMEM;
+    }
+    return TF_OK;
+}
+
+static int cmp_anomaly(const void *a, const void *b)
+{
+    double x = ((const tf_anomaly *)a)->time_s, y = ((const tf_anomaly *)b)->time_s;
+    return (x > y) - (x < y);
+}
+
+static tf_status build_bursts(tf_segment_result *r, const lobe_rec *rec)
+{
+    seg_vec b;
+    seg_vec_init(&b, sizeof(tf_burst));
+    tf_burst *cur = NULL;
+    for (size_t j = 0; j < r->nlobes; j++) {
+        tf_lobe *l = &r->lobes[j];
+        int starts = r->topology == TF_TOPO_RING_DOWN
+                         ? (j == 0 || zero_kind(rec[j].k0))
+                         : tf_device_is_thyristor(l->device);
+        if (starts) {
+            cur = seg_vec_push(&b);
+            if (!cur) {
+                seg_vec_free(&b);
+                return TF_ERR_NOMEM;
+            }
+            cur->first_lobe = j;
+            cur->i0 = l->i0;
+            cur->start_s = l->start_s;
+        }
+        if (!cur) {
+            l->burst = TF_NO_BURST;
+            continue;
+        }
+        l->burst = b.n - 1;
+        cur->nlobes++;
+        cur->i1 = l->i1;
+        cur->end_s = l->end_s;
+        cur->clipped |= l->clipped;
+        cur->anomalous |= l->partial || l->device == TF_DEV_UNKNOWN;
+        cur->ends_by_firing = l->end_by_firing;
+    }
+    tf_burst *bs = b.data;
+    for (size_t a = 0; a < r->nanomalies; a++)
+        for (size_t k = 0; k < b.n; k++)
+            if (r->anomalies[a].time_s >= bs[k].start_s && r->anomalies[a].time_s <= bs[k].end_s)
+                bs[k].anomalous = 1;
+    r->bursts = b.data;
+    r->nbursts = b.n;
+    return TF_OK;
+}
+
+tf_status seg_attribute(const seg_input *in, seg_vec *runs, tf_topology topo,
+                        tf_segment_result *r)
+{
+    const seg_run *rr = runs->data;
+    if (topo == TF_TOPO_UNKNOWN)
+        topo = infer_topology(in, rr, runs->n, r->topology_evidence,
+                              sizeof r->topology_evidence);
+    else
+        snprintf(r->topology_evidence, sizeof r->topology_evidence, "given");
+    r->topology = topo;
+    seg_vec recs, an, cyc;
+    seg_vec_init(&recs, sizeof(lobe_rec));
+    seg_vec_init(&an, sizeof(tf_anomaly));
+    seg_vec_init(&cyc, sizeof(tf_cycle));
+    double wsplit = 0;
+    tf_status st = split_runs(in, rr, runs->n, topo, &recs, &wsplit);
+    const lobe_rec *rec = recs.data;
+    size_t nl = recs.n;
+    if (st == TF_OK && !(r->lobes = calloc(nl ? nl : 1, sizeof *r->lobes)))
+        st = TF_ERR_NOMEM;
+    if (st == TF_OK) {
+        r->nlobes = nl;
+        for (size_t j = 0; j < nl; j++) {
+            tf_lobe *l = &r->lobes[j];
+            l->sign = rec[j].sign;
+            lobe_stats(in, l, rec[j].t0, rec[j].t1);
+            l->start_model = rec[j].m0;
+            l->end_model = rec[j].m1;
+            l->end_by_firing = rec[j].k1 == SEG_B_FIRING;
+            l->partial = rec[j].k0 == SEG_B_EDGE || rec[j].k1 == SEG_B_EDGE;
+        }
+        st = attribute_devices(in, topo, r->lobes, rec, nl, &an);
+    }
+    for (size_t c = 0; c < in->nclips && st == TF_OK; c++)
+        st = add_anomaly(&an, tf_capture_time(in->cap, in->clips[c].i0), "clipped",
+                         "current sits at %.4g for %zu samples: lobes touching it have "
+                         "untrusted peaks", (double)in->x[in->clips[c].i0],
+                         in->clips[c].i1 - in->clips[c].i0 + 1);
+    r->clipped_stretches = in->nclips;
+    if (st == TF_OK)
+        st = build_cycles(in, r->lobes, rec, nl, wsplit, &cyc);
+    if (st == TF_OK) {
+        r->cycles = cyc.data;
+        r->ncycles = cyc.n;
+        cyc.data = NULL;
+        st = period_anomalies(r, &an);
+    }
+    if (st == TF_OK) {
+        if (an.n)
+            qsort(an.data, an.n, sizeof(tf_anomaly), cmp_anomaly);
+        r->anomalies = an.data;
+        r->nanomalies = an.n;
+        an.data = NULL;
+        st = build_bursts(r, rec);
+    }
+    if (st == TF_OK) {
+        decide_mode(r, rec);
+        size_t m = r->ncycles + 1;
+        double *v = malloc(m * sizeof *v);
+        if (!v)
+            st = TF_ERR_NOMEM;
+        else {
+            struct { tf_stat3 *s; size_t off; } f[] = {
+                {&r->output_frequency_hz, offsetof(tf_cycle, frequency_hz)},
+                {&r->diode_s, offsetof(tf_cycle, diode_s)},
+                {&r->turnoff_available_s, offsetof(tf_cycle, turnoff_available_s)},
+                {&r->thyristor_s, offsetof(tf_cycle, thyristor_s)},
+                {&r->dead_s, offsetof(tf_cycle, dead_s)},
+                {&r->overlap_s, offsetof(tf_cycle, overlap_s)}};
+            for (size_t q = 0; q < sizeof f / sizeof f[0]; q++) {
+                for (size_t i = 0; i < r->ncycles; i++)
+                    v[i] = *(const double *)((const char *)&r->cycles[i] + f[q].off);
+                stat3(v, r->ncycles, f[q].s);
+            }
+            free(v);
+        }
+        r->damped_frequency_hz = wsplit > 0 ? wsplit / (2 * M_PI * in->cap->dt_s) : NAN;
+    }
+    seg_vec_free(&recs);
+    seg_vec_free(&an);
+    seg_vec_free(&cyc);
+    return st;
+}

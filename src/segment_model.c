@@ -1,0 +1,237 @@
+/* Segmenter models: damped-sine pieces for unbiased boundaries and overlapping splits. */
+#include "segment_internal.h"
+
+#include <math.h>
+#include <string.h>
+
+#include <gsl/gsl_linalg.h>
+
+/* Solve the symmetric positive definite system A y = r (n <= 4) with GSL's Cholesky. */
+static int spd_solve(double *a, double *r, double *y, size_t n)
+{
+    gsl_matrix_view A = gsl_matrix_view_array(a, n, n);
+    gsl_vector_view R = gsl_vector_view_array(r, n), Y = gsl_vector_view_array(y, n);
+    gsl_error_handler_t *old = gsl_set_error_handler_off();
+    int st = gsl_linalg_cholesky_decomp1(&A.matrix);
+    if (st == 0)
+        st = gsl_linalg_cholesky_solve(&A.matrix, &R.vector, &Y.vector);
+    gsl_set_error_handler(old);
+    return st == 0 ? 0 : -1;
+}
+
+/* One linear least-squares fit of the four-term model; c[0..3] = c1..c4 (c3, c4 per
+ * unit of tau / scale). Returns 0 on success. */
+static int fit4(const float *x, size_t k0, size_t k1, const seg_clip *clips, size_t nclips,
+                double t_b, double w, double a, double scale, double c[4])
+{
+    double ata[10] = {0}, atb[4] = {0};
+    double tau = (double)k0 - t_b;
+    double e = exp(-a * tau), co = cos(w * tau), si = sin(w * tau);
+    const double de = exp(-a), dc = cos(w), ds = sin(w);
+    size_t ci = 0, used = 0;
+    while (ci < nclips && clips[ci].i1 < k0)
+        ci++;
+    for (size_t k = k0; k <= k1; k++) {
+        while (ci < nclips && clips[ci].i1 < k)
+            ci++;
+        if (!(ci < nclips && clips[ci].i0 <= k)) {
+            double u = tau / scale;
+            double b0 = e * si, b1 = e * co, b2 = u * b0, b3 = u * b1, v = x[k];
+            ata[0] += b0 * b0; ata[1] += b0 * b1; ata[2] += b0 * b2; ata[3] += b0 * b3;
+            ata[4] += b1 * b1; ata[5] += b1 * b2; ata[6] += b1 * b3;
+            ata[7] += b2 * b2; ata[8] += b2 * b3; ata[9] += b3 * b3;
+            atb[0] += b0 * v; atb[1] += b1 * v; atb[2] += b2 * v; atb[3] += b3 * v;
+            used++;
+        }
+        /* recurrences instead of exp/sin/cos per sample; drift is far below 1e-12 here */
+        double nc = co * dc - si * ds;
+        si = si * dc + co * ds;
+        co = nc;
+        e *= de;
+        tau += 1.0;
+    }
+    if (used < 8)
+        return -1;
+    double m[16] = {ata[0], ata[1], ata[2], ata[3], ata[1], ata[4], ata[5], ata[6],
+                    ata[2], ata[5], ata[7], ata[8], ata[3], ata[6], ata[8], ata[9]};
+    return spd_solve(m, atb, c, 4);
+}
+
+int seg_model_zero(const float *x, size_t k0, size_t k1, const seg_clip *clips, size_t nclips,
+                   double t_b, double w, double a, double *zero)
+{
+    if (k1 <= k0 + 8 || !(w > 0) || !isfinite(t_b))
+        return -1;
+    double scale = (double)(k1 - k0), c[4];
+    for (int it = 0; it < 4; it++) {
+        if (fit4(x, k0, k1, clips, nclips, t_b, w, a, scale, c) != 0)
+            return -1;
+        /* c3, c4 are the first-order corrections of w and a: update the priors and refit
+         * (Gauss-Newton on the damped sine, parameters linear in c1, c2) */
+        double c3 = c[2] / scale, c4 = c[3] / scale, d = c[0] * c[0] + c[1] * c[1];
+        if (!(d > 0))
+            return -1;
+        double dw = (-c[1] * c3 + c[0] * c4) / d, da = (-c[0] * c3 - c[1] * c4) / d;
+        if (!isfinite(dw) || !isfinite(da) || fabs(dw) > 0.3 * w)
+            return -1;
+        if (it == 3 || (fabs(dw) < 1e-6 * w && fabs(da) * scale < 1e-5))
+            break; /* keep c of the w, a just used */
+        w += dw;
+        a += da;
+    }
+    /* zero of (c1 + c3 u) sin(w tau) + (c2 + c4 u) cos(w tau) nearest tau = 0 */
+    double tau = 0;
+    for (int it = 0; it < 20; it++) {
+        double u = tau / scale, s = sin(w * tau), co = cos(w * tau);
+        double f = (c[0] + c[2] * u) * s + (c[1] + c[3] * u) * co;
+        double fp = c[2] / scale * s + (c[0] + c[2] * u) * w * co + c[3] / scale * co -
+                    (c[1] + c[3] * u) * w * s;
+        if (fp == 0)
+            return -1;
+        double step = f / fp, lim = 0.1 / w;
+        if (step > lim)
+            step = lim;
+        if (step < -lim)
+            step = -lim;
+        tau -= step;
+        if (fabs(step) < 1e-9)
+            break;
+    }
+    if (!isfinite(tau) || fabs(tau) > 0.25 * M_PI / w)
+        return -1;
+    *zero = t_b + tau;
+    return 0;
+}
+
+/* Best split of [k0, k1] into a piece through zero at z0 and one through zero at z1,
+ * for fixed w, a: returns the residual; *s is the first sample of the second piece and
+ * amp[0..1] the pieces' amplitudes. */
+static double split_residual(const float *x, size_t k0, size_t k1, double z0, double z1,
+                             double w, double a, size_t *s, double amp[2])
+{
+    const double de = exp(-a), dc = cos(w), ds = sin(w);
+    double e2 = exp(-a * ((double)k0 - z1)), c2 = cos(w * ((double)k0 - z1)),
+           s2 = sin(w * ((double)k0 - z1));
+    double txg = 0, tgg = 0, sxx = 0;
+    for (size_t k = k0; k <= k1; k++) {
+        double g = e2 * s2, v = x[k];
+        txg += v * g;
+        tgg += g * g;
+        sxx += v * v;
+        double nc = c2 * dc - s2 * ds;
+        s2 = s2 * dc + c2 * ds;
+        c2 = nc;
+        e2 *= de;
+    }
+    double e1 = exp(-a * ((double)k0 - z0)), c1 = cos(w * ((double)k0 - z0)),
+           s1 = sin(w * ((double)k0 - z0));
+    e2 = exp(-a * ((double)k0 - z1));
+    c2 = cos(w * ((double)k0 - z1));
+    s2 = sin(w * ((double)k0 - z1));
+    double axg = 0, agg = 0, bxg = 0, bgg = 0, best = INFINITY;
+    for (size_t k = k0; k <= k1; k++) {
+        /* split before k: piece 1 holds [k0, k-1] */
+        if (k >= k0 + 3 && k + 3 <= k1 && agg > 0 && tgg - bgg > 0) {
+            double r2 = txg - bxg, q2 = tgg - bgg;
+            double res = sxx - axg * axg / agg - r2 * r2 / q2;
+            if (res < best) {
+                best = res;
+                *s = k;
+                amp[0] = axg / agg;
+                amp[1] = r2 / q2;
+            }
+        }
+        double v = x[k], g1 = e1 * s1, g2 = e2 * s2;
+        axg += v * g1;
+        agg += g1 * g1;
+        bxg += v * g2;
+        bgg += g2 * g2;
+        double n1 = c1 * dc - s1 * ds;
+        s1 = s1 * dc + c1 * ds;
+        c1 = n1;
+        e1 *= de;
+        double n2 = c2 * dc - s2 * ds;
+        s2 = s2 * dc + c2 * ds;
+        c2 = n2;
+        e2 *= de;
+    }
+    return best;
+}
+
+static double piece_diff(double t, double z0, double z1, double w, double a,
+                         const double amp[2])
+{
+    return amp[0] * exp(-a * (t - z0)) * sin(w * (t - z0)) -
+           amp[1] * exp(-a * (t - z1)) * sin(w * (t - z1));
+}
+
+int seg_split_pieces(const float *x, size_t k0, size_t k1, double z0, double z1, double *w,
+                     double a, double *split)
+{
+    if (k1 < k0 + 12 || !(z1 > z0))
+        return -1;
+    double len = z1 - z0, lo, hi, amp[2];
+    size_t s = 0;
+    if (*w > 0) {
+        lo = 0.97 * *w;
+        hi = 1.03 * *w;
+    } else {
+        /* each piece lasts less than half a damped period: w < 2 pi / len */
+        double best = INFINITY, wb = 0, g0 = 0.4 * M_PI / len, g1 = 2.0 * M_PI / len;
+        const int ng = 24;
+        for (int i = 0; i <= ng; i++) {
+            double wi = g0 + (g1 - g0) * i / ng;
+            double res = split_residual(x, k0, k1, z0, z1, wi, a, &s, amp);
+            if (res < best) {
+                best = res;
+                wb = wi;
+            }
+        }
+        if (!(wb > 0))
+            return -1;
+        lo = wb - (g1 - g0) / ng;
+        hi = wb + (g1 - g0) / ng;
+    }
+    /* golden-section search on w, the split found for each w by the sweep */
+    const double gr = 0.6180339887498949;
+    double c = hi - gr * (hi - lo), d = lo + gr * (hi - lo);
+    double fc = split_residual(x, k0, k1, z0, z1, c, a, &s, amp);
+    double fd = split_residual(x, k0, k1, z0, z1, d, a, &s, amp);
+    for (int it = 0; it < 30 && hi - lo > 1e-7 * (hi + lo); it++) {
+        if (fc < fd) {
+            hi = d;
+            d = c;
+            fd = fc;
+            c = hi - gr * (hi - lo);
+            fc = split_residual(x, k0, k1, z0, z1, c, a, &s, amp);
+        } else {
+            lo = c;
+            c = d;
+            fc = fd;
+            d = lo + gr * (hi - lo);
+            fd = split_residual(x, k0, k1, z0, z1, d, a, &s, amp);
+        }
+    }
+    double wf = 0.5 * (lo + hi);
+    if (!isfinite(split_residual(x, k0, k1, z0, z1, wf, a, &s, amp)))
+        return -1;
+    /* sub-sample: where the two fitted pieces meet, near the best sample split */
+    double ta = (double)s - 2, tb = (double)s + 1;
+    double fa = piece_diff(ta, z0, z1, wf, a, amp), fb = piece_diff(tb, z0, z1, wf, a, amp);
+    double t = (double)s - 0.5;
+    if (fa * fb < 0) {
+        for (int it = 0; it < 50; it++) {
+            double m = 0.5 * (ta + tb), fm = piece_diff(m, z0, z1, wf, a, amp);
+            if (fa * fm <= 0) {
+                tb = m;
+            } else {
+                ta = m;
+                fa = fm;
+            }
+        }
+        t = 0.5 * (ta + tb);
+    }
+    *w = wf;
+    *split = t;
+    return 0;
+}

@@ -1,0 +1,535 @@
+/* Segmenter tests: lobes, devices, crossings, turn-off time and mode against exact
+ * piecewise series-RLC waveforms (source: textbook series RLC response), and against
+ * the simulator when available. */
+#include "tf_test.h"
+
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include <tankfit/tankfit.h>
+
+#include "segment_wave.h"
+
+static tf_roles roles_for(const tf_capture *cap)
+{
+    tf_roles r;
+    memset(&r, 0, sizeof r);
+    r.current = 0;
+    r.voltage = r.cap_voltage = r.switch_voltage = -1;
+    for (int g = 0; g < 4; g++)
+        r.gate[g] = (size_t)(1 + g) < cap->nchan ? 1 + g : -1;
+    return r;
+}
+
+static tf_segment_result *segment(const segw_out *w, tf_topology topo)
+{
+    tf_roles roles = roles_for(w->cap);
+    tf_segment_options o;
+    tf_segment_options_init(&o);
+    o.topology = topo;
+    tf_segment_result *r = NULL;
+    tf_error err;
+    tf_error_clear(&err);
+    tf_status st = tf_segment_run(w->cap, &roles, &o, &r, &err);
+    if (st != TF_OK)
+        fprintf(stderr, "segment: %s\n", err.msg);
+    assert_int_equal(st, TF_OK);
+    assert_non_null(r);
+    if (getenv("SEG_DEBUG")) {
+        fprintf(stderr, "topology %s (%s), mode %s (%s), band %g\n",
+                tf_topology_name(r->topology), r->topology_evidence, tf_mode_name(r->mode),
+                r->mode_evidence, r->band_a);
+        for (size_t j = 0; j < r->nlobes && j < 40; j++)
+            fprintf(stderr, "lobe %2zu %-5s %+d %.9f %.9f model %d%d fire %d pk %g\n", j,
+                    tf_device_name(r->lobes[j].device), r->lobes[j].sign, r->lobes[j].start_s,
+                    r->lobes[j].end_s, r->lobes[j].start_model, r->lobes[j].end_model,
+                    r->lobes[j].end_by_firing, r->lobes[j].peak_a);
+        for (size_t v = 0; v < w->niv && v < 40; v++)
+            fprintf(stderr, "truth %2zu %-5s %.9f %.9f\n", v, tf_device_name(w->iv[v].dev),
+                    w->iv[v].t0, w->iv[v].t1);
+        for (size_t a = 0; a < r->nanomalies && a < 10; a++)
+            fprintf(stderr, "anomaly %s %g %s\n", r->anomalies[a].kind, r->anomalies[a].time_s,
+                    r->anomalies[a].text);
+    }
+    return r;
+}
+
+typedef struct match_stats {
+    size_t truth, found, attributed;
+    double max_err_s;         /* largest boundary error over zero-crossing boundaries */
+    double max_fire_err_s;    /* largest boundary error at firings inside a stretch */
+} match_stats;
+
+/* Every truth interval that the record holds whole must be a lobe with the right
+ * device and boundaries. */
+static match_stats match(const segw_out *w, const tf_segment_result *r, double margin_s)
+{
+    match_stats m = {0};
+    double dur = (double)w->cap->n * w->cap->dt_s;
+    for (size_t v = 0; v < w->niv; v++) {
+        const segw_interval *iv = &w->iv[v];
+        if (iv->t0 < margin_s || iv->t1 > dur - margin_s)
+            continue;
+        m.truth++;
+        double half = 0.5 * (iv->t1 - iv->t0);
+        for (size_t j = 0; j < r->nlobes; j++) {
+            const tf_lobe *l = &r->lobes[j];
+            if (fabs(l->start_s - iv->t0) > half || fabs(l->end_s - iv->t1) > half)
+                continue;
+            m.found++;
+            m.attributed += l->device == iv->dev;
+            double es = fabs(l->start_s - iv->t0), ee = fabs(l->end_s - iv->t1);
+            if (getenv("SEG_DEBUG") && fmax(es, ee) > 0.3 * w->cap->dt_s)
+                fprintf(stderr, "lobe %zu %s: start err %+.3f model %d, end err %+.3f model %d "
+                        "(samples)\n", j, tf_device_name(l->device),
+                        (l->start_s - iv->t0) / w->cap->dt_s, l->start_model,
+                        (l->end_s - iv->t1) / w->cap->dt_s, l->end_model);
+            if (l->end_by_firing)
+                m.max_fire_err_s = fmax(m.max_fire_err_s, ee);
+            else
+                m.max_err_s = fmax(m.max_err_s, ee);
+            if (j > 0 && r->lobes[j - 1].end_by_firing)
+                m.max_fire_err_s = fmax(m.max_fire_err_s, es);
+            else
+                m.max_err_s = fmax(m.max_err_s, es);
+            break;
+        }
+    }
+    return m;
+}
+
+/* Turn-off time available per thyristor interval of the truth: its zero until the
+ * diode interval that follows it ends (naturally or at the opposite firing). */
+static void check_turnoff(const segw_out *w, const tf_segment_result *r, double margin_s)
+{
+    double dt = w->cap->dt_s, dur = (double)w->cap->n * dt;
+    size_t checked = 0;
+    for (size_t v = 0; v + 1 < w->niv; v++) {
+        if (!tf_device_is_thyristor(w->iv[v].dev) || w->iv[v].t0 < margin_s ||
+            w->iv[v + 1].t1 > dur - margin_s)
+            continue;
+        double truth = w->iv[v + 1].t1 - w->iv[v + 1].t0;
+        int found = 0;
+        for (size_t c = 0; c < r->ncycles; c++)
+            if (fabs(r->cycles[c].start_s - w->iv[v].t0) < 2 * dt) {
+                found = 1;
+                double e = fabs(r->cycles[c].turnoff_available_s - truth);
+                if (e > dt + 0.005 * truth)
+                    fprintf(stderr, "turn-off at %g: %g vs truth %g\n", w->iv[v].t0,
+                            r->cycles[c].turnoff_available_s, truth);
+                /* issue requirement: within 1 sample period + 0.5 % */
+                assert_true(e <= dt + 0.005 * truth);
+            }
+        assert_true(found);
+        checked++;
+    }
+    assert_true(checked >= 3);
+}
+
+static void expect_all(const segw_out *w, const tf_segment_result *r, double tol_s)
+{
+    match_stats m = match(w, r, 2e-6);
+    if (m.found != m.truth || m.attributed != m.truth || m.max_err_s > tol_s)
+        fprintf(stderr, "truth %zu found %zu attributed %zu max err %.3g s (tol %.3g)\n",
+                m.truth, m.found, m.attributed, m.max_err_s, tol_s);
+    assert_true(m.truth >= 4);
+    assert_int_equal(m.found, m.truth);
+    assert_int_equal(m.attributed, m.truth);
+    assert_true(m.max_err_s <= tol_s);
+}
+
+static size_t count_anomalies(const tf_segment_result *r, const char *kind)
+{
+    size_t n = 0;
+    for (size_t a = 0; a < r->nanomalies; a++)
+        n += strcmp(r->anomalies[a].kind, kind) == 0;
+    return n;
+}
+
+/* Noiseless half-bridge: every zero-to-zero piece lasts pi / wd exactly. */
+static void test_segment_textbook_diode_interval(void **state)
+{
+    (void)state;
+    segw_cfg c;
+    segw_defaults(&c);
+    segw_out w;
+    assert_int_equal(segw_make(&c, &w), 0);
+    tf_segment_result *r = segment(&w, TF_TOPO_UNKNOWN);
+    assert_int_equal(r->topology, TF_TOPO_HALF_BRIDGE);
+    assert_int_equal(r->mode, TF_MODE_NON_OVERLAPPING);
+    expect_all(&w, r, 0.05 * w.cap->dt_s);
+    /* source: textbook series RLC response: the current of an isolated burst returns to
+     * zero after pi / wd, so the diode interval is pi / wd */
+    double want = M_PI / w.wd;
+    assert_true(r->diode_s.count >= 5);
+    assert_true(tf_test_reldiff(r->diode_s.median, want) < 1e-4);
+    assert_true(tf_test_reldiff(r->diode_s.min, want) < 1e-4);
+    assert_true(tf_test_reldiff(r->diode_s.max, want) < 1e-4);
+    /* output frequency: one firing of each thyristor per two firing steps */
+    assert_true(tf_test_reldiff(r->output_frequency_hz.median, 1 / (2 * c.fire_step_s)) < 1e-4);
+    assert_int_equal(count_anomalies(r, "commutation-failure"), 0);
+    tf_segment_free(r);
+    segw_free(&w);
+}
+
+/* Noise (SNR about 36 dB), 8-bit quantisation and device drops. */
+static void test_segment_noisy_half_bridge(void **state)
+{
+    (void)state;
+    segw_cfg c;
+    segw_defaults(&c);
+    c.vt = 1.6;
+    c.vd = 1.1;
+    c.snr_db = 40;
+    c.range = 200;
+    c.bits = 8;
+    c.seed = 7;
+    c.duration_s = 4e-3;
+    segw_out w;
+    assert_int_equal(segw_make(&c, &w), 0);
+    tf_segment_result *r = segment(&w, TF_TOPO_UNKNOWN);
+    assert_int_equal(r->topology, TF_TOPO_HALF_BRIDGE);
+    assert_int_equal(r->mode, TF_MODE_NON_OVERLAPPING);
+    /* issue requirement: crossing times within 0.5 sample period */
+    expect_all(&w, r, 0.5 * w.cap->dt_s);
+    check_turnoff(&w, r, 2e-6);
+    assert_int_equal(r->nanomalies, 0);
+    tf_segment_free(r);
+    segw_free(&w);
+}
+
+/* The tangential-approach bias: at a dead-zone boundary a crossing interpolated from
+ * the raw samples (last sign change before the current leaves the band) comes out
+ * early at the start and late at the end, so conduction looks too long. The model
+ * boundary must not. */
+static void test_segment_dead_zone_bias_removed(void **state)
+{
+    (void)state;
+    segw_cfg c;
+    segw_defaults(&c);
+    c.snr_db = 30;
+    c.duration_s = 12e-3;
+    c.seed = 11;
+    segw_out w;
+    assert_int_equal(segw_make(&c, &w), 0);
+    tf_segment_result *r = segment(&w, TF_TOPO_HALF_BRIDGE);
+    const float *x = w.cap->ch[0].samples;
+    double dt = w.cap->dt_s, sum_model = 0, sum_naive = 0;
+    size_t n = 0;
+    for (size_t v = 0; v < w.niv; v++) {
+        const segw_interval *iv = &w.iv[v];
+        if (!tf_device_is_thyristor(iv->dev) || iv->t0 < 5e-6 || iv->t1 > c.duration_s - 5e-6)
+            continue;
+        const tf_lobe *l = NULL;
+        for (size_t j = 0; j < r->nlobes; j++)
+            if (fabs(r->lobes[j].start_s - iv->t0) < 20 * dt)
+                l = &r->lobes[j];
+        assert_non_null(l);
+        assert_true(l->start_model);
+        sum_model += iv->t0 - l->start_s; /* positive: boundary too early, lobe too long */
+        /* naive: walk back from the band exit to the last sign change and interpolate */
+        size_t k = (size_t)ceil(iv->t0 / dt);
+        while (fabs(x[k]) <= r->band_a)
+            k++;
+        while (k > 0 && x[k - 1] * l->sign > 0)
+            k--;
+        double tn = ((double)k - 1 + x[k - 1] / (x[k - 1] - x[k])) * dt;
+        sum_naive += iv->t0 - tn;
+        n++;
+    }
+    assert_true(n >= 40);
+    double bias_model = sum_model / (double)n / dt, bias_naive = sum_naive / (double)n / dt;
+    fprintf(stderr, "dead-zone start bias over %zu lobes: model %+.3f samples, naive %+.3f\n",
+            n, bias_model, bias_naive);
+    /* the naive estimator is biased outward by a good part of a sample ... */
+    assert_true(bias_naive > 0.3);
+    /* ... the model boundary is not (mean of n errors; spread about 0.3 sample each) */
+    assert_true(fabs(bias_model) < 0.1);
+    tf_segment_free(r);
+    segw_free(&w);
+}
+
+static void test_segment_single_switch(void **state)
+{
+    (void)state;
+    segw_cfg c;
+    segw_defaults(&c);
+    c.topo = TF_TOPO_SINGLE;
+    c.E = 300;
+    c.reset_v = -150;
+    c.fire_step_s = 250e-6;
+    c.snr_db = 40;
+    c.vt = 1.5;
+    c.vd = 1.0;
+    c.duration_s = 3e-3;
+    segw_out w;
+    assert_int_equal(segw_make(&c, &w), 0);
+    tf_segment_result *r = segment(&w, TF_TOPO_UNKNOWN);
+    assert_int_equal(r->topology, TF_TOPO_SINGLE);
+    assert_int_equal(r->mode, TF_MODE_NON_OVERLAPPING);
+    expect_all(&w, r, 0.5 * w.cap->dt_s);
+    check_turnoff(&w, r, 2e-6);
+    assert_true(tf_test_reldiff(r->output_frequency_hz.median, 1 / c.fire_step_s) < 1e-3);
+    tf_segment_free(r);
+    segw_free(&w);
+}
+
+static void test_segment_full_bridge_gates(void **state)
+{
+    (void)state;
+    segw_cfg c;
+    segw_defaults(&c);
+    c.topo = TF_TOPO_FULL_BRIDGE;
+    c.gates = 1;
+    c.snr_db = 40;
+    c.vt = 3.2;
+    c.vd = 2.2;
+    segw_out w;
+    assert_int_equal(segw_make(&c, &w), 0);
+    tf_segment_result *r = segment(&w, TF_TOPO_UNKNOWN);
+    assert_int_equal(r->topology, TF_TOPO_FULL_BRIDGE);
+    expect_all(&w, r, 0.5 * w.cap->dt_s);
+    check_turnoff(&w, r, 2e-6);
+    assert_int_equal(r->nanomalies, 0);
+    assert_true(r->nfirings >= 10);
+    tf_segment_free(r);
+    segw_free(&w);
+}
+
+static void overlapping(int gates)
+{
+    segw_cfg c;
+    segw_defaults(&c);
+    c.fire_step_s = 120e-6; /* shorter than one damped period: the diode interval is cut */
+    c.snr_db = 45;
+    c.gates = gates;
+    c.vt = 1.5;
+    c.vd = 1.0;
+    c.duration_s = 3e-3;
+    segw_out w;
+    assert_int_equal(segw_make(&c, &w), 0);
+    tf_segment_result *r = segment(&w, TF_TOPO_UNKNOWN);
+    assert_int_equal(r->topology, TF_TOPO_HALF_BRIDGE);
+    assert_int_equal(r->mode, TF_MODE_OVERLAPPING);
+    match_stats m = match(&w, r, 2e-6);
+    fprintf(stderr, "overlapping (gates %d): truth %zu found %zu attributed %zu crossing err "
+            "%.3g s, split err %.3g s\n", gates, m.truth, m.found, m.attributed, m.max_err_s,
+            m.max_fire_err_s);
+    assert_true(m.truth >= 10);
+    assert_int_equal(m.found, m.truth);
+    assert_int_equal(m.attributed, m.truth);
+    assert_true(m.max_err_s <= 0.5 * w.cap->dt_s);
+    check_turnoff(&w, r, 2e-6);
+    for (size_t k = 0; k < r->ncycles; k++)
+        if (isfinite(r->cycles[k].overlap_s))
+            assert_true(r->cycles[k].overlap_s > 0);
+    tf_segment_free(r);
+    segw_free(&w);
+}
+
+static void test_segment_overlapping_current_only(void **state)
+{
+    (void)state;
+    overlapping(0);
+}
+
+static void test_segment_overlapping_gates(void **state)
+{
+    (void)state;
+    overlapping(1);
+}
+
+static void test_segment_ring_down(void **state)
+{
+    (void)state;
+    segw_cfg c;
+    segw_defaults(&c);
+    c.topo = TF_TOPO_RING_DOWN;
+    c.E = 400;
+    c.R = 0.15;
+    c.duration_s = 1.5e-3;
+    c.snr_db = 40;
+    segw_out w;
+    assert_int_equal(segw_make(&c, &w), 0);
+    tf_segment_result *r = segment(&w, TF_TOPO_UNKNOWN);
+    assert_int_equal(r->topology, TF_TOPO_RING_DOWN);
+    /* alternating lobes of one free oscillation, each pi / wd long (textbook series
+     * RLC response) while the lobes stand well above the noise */
+    size_t good = 0;
+    for (size_t j = 0; j + 1 < r->nlobes; j++) {
+        const tf_lobe *l = &r->lobes[j];
+        assert_int_equal(l->device, TF_DEV_RING);
+        if (fabs(l->peak_a) > 40 && !l->partial) {
+            assert_true(fabs((l->end_s - l->start_s) - M_PI / w.wd) < 0.5 * w.cap->dt_s);
+            good++;
+        }
+    }
+    assert_true(good >= 8);
+    assert_int_equal(r->nbursts, 1);
+    tf_segment_free(r);
+    segw_free(&w);
+}
+
+static void test_segment_clipped_current(void **state)
+{
+    (void)state;
+    segw_cfg c;
+    segw_defaults(&c);
+    c.snr_db = 40;
+    c.range = 120; /* the peaks (about 150 A) are cut */
+    c.bits = 10;
+    segw_out w;
+    assert_int_equal(segw_make(&c, &w), 0);
+    tf_segment_result *r = segment(&w, TF_TOPO_UNKNOWN);
+    assert_true(count_anomalies(r, "clipped") >= 4);
+    size_t clipped = 0;
+    for (size_t j = 0; j < r->nlobes; j++)
+        clipped += r->lobes[j].clipped;
+    assert_true(clipped >= 4);
+    /* the timing does not depend on the tops */
+    expect_all(&w, r, 0.5 * w.cap->dt_s);
+    check_turnoff(&w, r, 2e-6);
+    tf_segment_free(r);
+    segw_free(&w);
+}
+
+static void test_segment_unclipped_quantised_peaks_not_clipped(void **state)
+{
+    (void)state;
+    segw_cfg c;
+    segw_defaults(&c);
+    c.range = 200;
+    c.bits = 8; /* flat quantised tops, but nothing at the range */
+    segw_out w;
+    assert_int_equal(segw_make(&c, &w), 0);
+    tf_segment_result *r = segment(&w, TF_TOPO_UNKNOWN);
+    assert_int_equal(count_anomalies(r, "clipped"), 0);
+    tf_segment_free(r);
+    segw_free(&w);
+}
+
+static void test_segment_commutation_failure(void **state)
+{
+    (void)state;
+    segw_cfg c;
+    segw_defaults(&c);
+    c.noise = 1.0;
+    c.tq_s = 200e-6; /* longer than the diode interval: the thyristor re-conducts */
+    c.fire_step_s = 400e-6;
+    c.duration_s = 2e-3;
+    segw_out w;
+    assert_int_equal(segw_make(&c, &w), 0);
+    size_t refires = 0;
+    for (size_t v = 0; v < w.niv; v++)
+        refires += w.iv[v].refire;
+    assert_true(refires >= 2);
+    tf_segment_result *r = segment(&w, TF_TOPO_HALF_BRIDGE);
+    assert_true(count_anomalies(r, "commutation-failure") >= refires - 1);
+    tf_segment_free(r);
+    segw_free(&w);
+}
+
+static void test_segment_missing_firing(void **state)
+{
+    (void)state;
+    segw_cfg c;
+    segw_defaults(&c);
+    c.noise = 1.0;
+    c.skip_firing = 7;
+    c.duration_s = 3e-3;
+    segw_out w;
+    assert_int_equal(segw_make(&c, &w), 0);
+    tf_segment_result *r = segment(&w, TF_TOPO_HALF_BRIDGE);
+    assert_true(count_anomalies(r, "missing-firing") >= 1);
+    double want = c.t_first_s + 7 * c.fire_step_s;
+    int near = 0;
+    for (size_t a = 0; a < r->nanomalies; a++)
+        if (strcmp(r->anomalies[a].kind, "missing-firing") == 0 &&
+            fabs(r->anomalies[a].time_s - want) < c.fire_step_s)
+            near = 1;
+    assert_true(near);
+    tf_segment_free(r);
+    segw_free(&w);
+}
+
+static void test_segment_errors(void **state)
+{
+    (void)state;
+    tf_capture *cap = tf_capture_create();
+    assert_non_null(cap);
+    assert_int_equal(tf_capture_alloc(cap, 1, 1000, NULL), TF_OK);
+    cap->dt_s = 1e-7;
+    strcpy(cap->ch[0].name, "i");
+    for (size_t k = 0; k < cap->n; k++)
+        cap->ch[0].samples[k] = 0;
+    tf_roles roles = roles_for(cap);
+    tf_segment_result *r = (tf_segment_result *)1;
+    tf_error err;
+    tf_error_clear(&err);
+    assert_int_equal(tf_segment_run(cap, &roles, NULL, &r, &err), TF_ERR_DATA);
+    assert_null(r);
+    assert_non_null(strstr(err.msg, "expected"));
+    roles.current = -1;
+    assert_int_equal(tf_segment_run(cap, &roles, NULL, &r, &err), TF_ERR_USAGE);
+    tf_segment_free(NULL);
+    tf_capture_destroy(cap);
+}
+
+static void test_segment_json_keys(void **state)
+{
+    (void)state;
+    segw_cfg c;
+    segw_defaults(&c);
+    c.noise = 1.0;
+    segw_out w;
+    assert_int_equal(segw_make(&c, &w), 0);
+    tf_segment_result *r = segment(&w, TF_TOPO_UNKNOWN);
+    json_t *j = tf_segment_to_json(r);
+    assert_non_null(j);
+    assert_string_equal(json_string_value(json_object_get(j, "mode")), "non-overlapping");
+    assert_string_equal(json_string_value(json_object_get(j, "topology")), "half-bridge");
+    json_t *lobes = json_object_get(j, "lobes"), *cycles = json_object_get(j, "cycles");
+    assert_int_equal(json_array_size(lobes), r->nlobes);
+    const char *lk[] = {"start_s", "end_s", "sign", "device", "peak_a"};
+    for (int k = 0; k < 5; k++)
+        assert_non_null(json_object_get(json_array_get(lobes, 1), lk[k]));
+    const char *ck[] = {"start_s", "period_s", "frequency_hz", "thyristor_s", "diode_s",
+                        "turnoff_available_s", "dead_s", "overlap_s"};
+    for (int k = 0; k < 8; k++)
+        assert_non_null(json_object_get(json_array_get(cycles, 0), ck[k]));
+    json_t *t = json_object_get(j, "timing");
+    const char *tk[] = {"output_frequency_hz", "diode_s", "turnoff_available_s"};
+    for (int k = 0; k < 3; k++) {
+        json_t *s = json_object_get(t, tk[k]);
+        assert_true(json_is_real(json_object_get(s, "min")));
+        assert_true(json_is_real(json_object_get(s, "median")));
+        assert_true(json_is_real(json_object_get(s, "max")));
+    }
+    assert_true(json_is_array(json_object_get(j, "anomalies")));
+    json_decref(j);
+    tf_segment_free(r);
+    segw_free(&w);
+}
+
+int main(void)
+{
+    const struct CMUnitTest tests[] = {
+        cmocka_unit_test(test_segment_textbook_diode_interval),
+        cmocka_unit_test(test_segment_noisy_half_bridge),
+        cmocka_unit_test(test_segment_dead_zone_bias_removed),
+        cmocka_unit_test(test_segment_single_switch),
+        cmocka_unit_test(test_segment_full_bridge_gates),
+        cmocka_unit_test(test_segment_overlapping_current_only),
+        cmocka_unit_test(test_segment_overlapping_gates),
+        cmocka_unit_test(test_segment_ring_down),
+        cmocka_unit_test(test_segment_clipped_current),
+        cmocka_unit_test(test_segment_unclipped_quantised_peaks_not_clipped),
+        cmocka_unit_test(test_segment_commutation_failure),
+        cmocka_unit_test(test_segment_missing_firing),
+        cmocka_unit_test(test_segment_errors),
+        cmocka_unit_test(test_segment_json_keys),
+    };
+    return cmocka_run_group_tests(tests, NULL, NULL);
+}
