@@ -89,20 +89,60 @@ static tf_status pick_fundamental(const tf_capture *cap, const tf_segment_result
     return TF_OK;
 }
 
+/* Stencil of tf_sp_interp: first sample index and the four cubic weights. */
+static inline size_t stencil(double pos, size_t n, double wt[4])
+{
+    if (pos < 0.0)
+        pos = 0.0;
+    else if (pos > (double)(n - 1))
+        pos = (double)(n - 1);
+    long k = (long)pos - 1; /* pos >= 0: truncation is floor */
+    if (k < 0)
+        k = 0;
+    else if (k > (long)n - 4)
+        k = (long)n - 4;
+    const double u = pos - (double)k;
+    const double a = u - 1.0, b = u - 2.0, c = u - 3.0;
+    wt[0] = -(a * b * c / 6.0);
+    wt[1] = u * b * c * 0.5;
+    wt[2] = -(u * a * c * 0.5);
+    wt[3] = u * a * b / 6.0;
+    return (size_t)k;
+}
+
 /* Resample every channel on the same grid t_a + j tau (j < M S), folding the
- * values into one period; also the sums of squares and of v * i. */
+ * values into one period; also the sums of squares and of v * i. Channels
+ * read without a shift share one stencil per point. */
 static double fold_pass(const tf_capture *cap, work *w, int nw, size_t M, size_t S,
                         double step, int iv, int ii)
 {
     double vi = 0.0;
     double val[MAX_CH];
+    int grp[MAX_CH];
+    double gpos[MAX_CH];
+    int ng = 0;
+    for (int c = 0; c < nw; c++) {
+        int g = 0;
+        while (g < ng && gpos[g] != w[c].pos0)
+            g++;
+        if (g == ng)
+            gpos[ng++] = w[c].pos0;
+        grp[c] = g;
+    }
+    const size_t n = cap->n;
     for (size_t m = 0; m < M; m++) {
         double sq[MAX_CH] = {0}, pvi = 0.0;
         const size_t j0 = m * S;
         for (size_t s = 0; s < S; s++) {
             const double dj = (double)(j0 + s) * step;
+            double wt[MAX_CH][4];
+            size_t k[MAX_CH];
+            for (int g = 0; g < ng; g++)
+                k[g] = stencil(gpos[g] + dj, n, wt[g]);
             for (int c = 0; c < nw; c++) {
-                const double v = tf_sp_interp(w[c].x, cap->n, w[c].pos0 + dj);
+                const float *p = w[c].x + k[grp[c]];
+                const double *q = wt[grp[c]];
+                const double v = q[0] * p[0] + q[1] * p[1] + q[2] * p[2] + q[3] * p[3];
                 val[c] = v;
                 w[c].fold[s] += v;
                 sq[c] += v * v;
@@ -163,16 +203,36 @@ static tf_status sync_phasors(work *w, size_t M, size_t S, int H, double f, doub
     return TF_OK;
 }
 
+/* Length of the Hann transform: at most count, of the form 2^a m with a small odd m
+ * (FFTW_ESTIMATE plans such lengths well: about 2.5x faster than a general
+ * 7-smooth length near 10^7 points on this machine); short windows take the
+ * largest 7-smooth length. */
+static size_t hann_length(size_t count)
+{
+    static const size_t odd[] = {1, 3, 5, 7, 9, 15};
+    if (count < 4096)
+        return tf_spectrum_smooth_down(count);
+    size_t best = 0;
+    for (int i = 0; i < 6; i++) {
+        size_t L = odd[i];
+        while (L * 2 <= count)
+            L *= 2;
+        if (L > best)
+            best = L;
+    }
+    return best;
+}
+
 /* Hann-window phasors on the raw samples of the window (non-synchronous). */
 static tf_status hann_phasors(const tf_capture *cap, work *w, double t_a, size_t count, int H,
-                              double f, tf_error *err)
+                              double f, size_t *used, tf_error *err)
 {
     long k0 = (long)ceil(w->pos0 - 1e-9);
     if (k0 < 0)
         k0 = 0;
     if ((size_t)k0 + count > cap->n)
         count = cap->n - (size_t)k0;
-    const size_t L = tf_spectrum_smooth_down(count);
+    const size_t L = hann_length(count);
     double *buf = fftw_malloc(sizeof(double) * L);
     fftw_complex *X = fftw_malloc(sizeof(fftw_complex) * (L / 2 + 1));
     fftw_plan plan = tf_sp_plan_r2c(L);
@@ -181,6 +241,7 @@ static tf_status hann_phasors(const tf_capture *cap, work *w, double t_a, size_t
         fftw_free(X);
         return tf_error_set(err, TF_ERR_NOMEM, "out of memory for a %zu-point FFT", L);
     }
+    *used = L;
     for (size_t k = 0; k < L; k++)
         buf[k] = w->x[(size_t)k0 + k];
     tf_sp_hann_apply(buf, L);
@@ -458,8 +519,7 @@ static tf_status analyse(const tf_capture *cap, const tf_segment_result *seg,
         st = sync_phasors(&w[c], g.M, g.S, H, f, &dc[c], &msq[c], err);
         if (st == TF_OK && r->window) {
             st = hann_phasors(cap, &w[c], g.t_a, (size_t)floor((double)N * g.step) + 1, H, f,
-                              err);
-            r->transform_length = tf_spectrum_smooth_down((size_t)floor((double)N * g.step) + 1);
+                              &r->transform_length, err);
         }
     }
     if (st != TF_OK)
