@@ -36,6 +36,16 @@
 
 enum { BLOCK = 256 };
 
+/* The packed inner loops below vectorise on their own but not once inlined
+ * into their callers' control flow (seen with GCC 12): keep them apart. */
+#if defined(__GNUC__) && !defined(__clang__)
+#define TF_NOINLINE __attribute__((noinline, noclone))
+#elif defined(__GNUC__)
+#define TF_NOINLINE __attribute__((noinline))
+#else
+#define TF_NOINLINE
+#endif
+
 /* Neumaier-compensated accumulator: sum of block sums. */
 typedef struct {
     double s, c;
@@ -51,33 +61,73 @@ static void ksum_add(ksum *k, double v)
     k->s = t;
 }
 
-/* min, max, sum and sum of squares in one pass: blocks of BLOCK samples are
- * summed in double with four independent accumulators (exact enough: 256
- * terms), the block sums are added with compensation. */
+/* Sums of x and x^2 over 8 * m samples into eight lanes each: independent
+ * lanes let the compiler use packed double arithmetic without reordering any
+ * sum. */
+TF_NOINLINE static void lane_sums(const float *restrict x, size_t m, double *restrict s,
+                                  double *restrict q)
+{
+    double s8[8] = {0}, q8[8] = {0};
+    for (size_t k = 0; k < m; k++, x += 8)
+        for (int j = 0; j < 8; j++) {
+            double v = x[j];
+            s8[j] += v;
+            q8[j] += v * v;
+        }
+    memcpy(s, s8, sizeof s8);
+    memcpy(q, q8, sizeof q8);
+}
+
+/* Extremes of 8 * m samples in eight lanes. */
+TF_NOINLINE static void lane_extremes(const float *restrict x, size_t m, float *restrict lo,
+                                      float *restrict hi)
+{
+    float l8[8], h8[8];
+    for (int j = 0; j < 8; j++)
+        l8[j] = h8[j] = x[0];
+    for (size_t k = 0; k < m; k++, x += 8)
+        for (int j = 0; j < 8; j++) {
+            l8[j] = x[j] < l8[j] ? x[j] : l8[j];
+            h8[j] = x[j] > h8[j] ? x[j] : h8[j];
+        }
+    memcpy(lo, l8, sizeof l8);
+    memcpy(hi, h8, sizeof h8);
+}
+
+static void block_sums(const float *x, size_t m, double *s, double *q, float *lo, float *hi)
+{
+    double s8[8], q8[8];
+    float l8[8], h8[8];
+    lane_sums(x, m, s8, q8);
+    lane_extremes(x, m, l8, h8);
+    *s = ((s8[0] + s8[1]) + (s8[2] + s8[3])) + ((s8[4] + s8[5]) + (s8[6] + s8[7]));
+    *q = ((q8[0] + q8[1]) + (q8[2] + q8[3])) + ((q8[4] + q8[5]) + (q8[6] + q8[7]));
+    for (int j = 0; j < 8; j++) {
+        *lo = l8[j] < *lo ? l8[j] : *lo;
+        *hi = h8[j] > *hi ? h8[j] : *hi;
+    }
+}
+
+/* min, max, mean and RMS in one pass: blocks of BLOCK samples are summed in
+ * double (pairwise over eight lanes), the block sums are added with
+ * compensation, so the error does not grow with n. */
 static void moments(const float *x, size_t n, tf_channel_stats *out)
 {
     ksum s = {0, 0}, q = {0, 0};
     float lo = x[0], hi = x[0];
-    for (size_t b = 0; b < n; b += BLOCK) {
-        size_t e = n - b < BLOCK ? n : b + BLOCK;
-        double s0 = 0, s1 = 0, s2 = 0, s3 = 0, q0 = 0, q1 = 0, q2 = 0, q3 = 0;
-        size_t k = b;
-        for (; k + 4 <= e; k += 4) {
-            double a = x[k], c = x[k + 1], d = x[k + 2], f = x[k + 3];
-            s0 += a; s1 += c; s2 += d; s3 += f;
-            q0 += a * a; q1 += c * c; q2 += d * d; q3 += f * f;
-        }
-        for (; k < e; k++) {
-            double a = x[k];
-            s0 += a;
-            q0 += a * a;
-        }
-        for (k = b; k < e; k++) {
-            lo = x[k] < lo ? x[k] : lo;
-            hi = x[k] > hi ? x[k] : hi;
-        }
-        ksum_add(&s, (s0 + s1) + (s2 + s3));
-        ksum_add(&q, (q0 + q1) + (q2 + q3));
+    size_t k = 0;
+    for (; k + BLOCK <= n; k += BLOCK) {
+        double bs, bq;
+        block_sums(x + k, BLOCK / 8, &bs, &bq, &lo, &hi);
+        ksum_add(&s, bs);
+        ksum_add(&q, bq);
+    }
+    for (; k < n; k++) {
+        double v = x[k];
+        ksum_add(&s, v);
+        ksum_add(&q, v * v);
+        lo = x[k] < lo ? x[k] : lo;
+        hi = x[k] > hi ? x[k] : hi;
     }
     out->min = lo;
     out->max = hi;
@@ -194,50 +244,63 @@ static double lsb_estimate(const double *d, size_t m, double lo, double hi)
     return q;
 }
 
-/* Runs of equal values: a run at lo or hi counts as clipped when it is long
- * and much longer than its neighbours (TF_CLIP_MIN_RUN, TF_CLIP_RATIO). */
+/* Length of the run of samples equal to x[k] going back from k (inclusive). */
+static size_t run_back(const float *x, size_t k)
+{
+    size_t s = k;
+    while (s > 0 && x[s - 1] == x[k])
+        s--;
+    return k - s + 1;
+}
+
+/* Length of the run of samples equal to x[k] going forward from k. */
+static size_t run_fwd(const float *x, size_t n, size_t k)
+{
+    size_t e = k;
+    while (e + 1 < n && x[e + 1] == x[k])
+        e++;
+    return e - k + 1;
+}
+
+/* Non-zero when one of x[0..15] equals lo or hi (branch-free, packed). */
+TF_NOINLINE static int block_touches(const float *x, float lo, float hi)
+{
+    int any = 0;
+    for (int j = 0; j < 16; j++)
+        any |= (x[j] == hi) | (x[j] == lo);
+    return any;
+}
+
+/* Runs at lo or hi count as clipped when long and much longer than their
+ * neighbours (TF_CLIP_MIN_RUN, TF_CLIP_RATIO). Samples away from the
+ * extremes are skipped 16 at a time with a branch-free test. */
 static void clipping(const float *x, size_t n, float lo, float hi, tf_channel_stats *out)
 {
     if (!(lo < hi))
         return; /* a constant channel is flat, not clipped */
-    size_t prev_len = 0;           /* run before the current one (0: none) */
-    size_t pend_len = 0, pend_prev = 0; /* extreme run waiting for its successor */
-    int pend_high = 0;
-    size_t start = 0;
-    for (size_t k = 1; k <= n; k++) {
-        if (k < n && x[k] == x[start])
+    size_t k = 0;
+    while (k < n) {
+        if (k + 16 <= n && !block_touches(x + k, lo, hi)) {
+            k += 16;
             continue;
-        size_t len = k - start;
-        if (pend_len) {
-            size_t nb = pend_prev > len ? pend_prev : len;
-            if (pend_len >= TF_CLIP_MIN_RUN && pend_len >= TF_CLIP_RATIO * nb) {
-                out->clipped_samples += pend_len;
-                out->clipped_runs++;
-                if (pend_high)
-                    out->clipped_high = 1;
-                else
-                    out->clipped_low = 1;
-            }
-            pend_len = 0;
         }
-        if (x[start] == hi || x[start] == lo) {
-            if (k == n) { /* last run: only the neighbour before it */
-                if (len >= TF_CLIP_MIN_RUN && len >= TF_CLIP_RATIO * prev_len) {
-                    out->clipped_samples += len;
-                    out->clipped_runs++;
-                    if (x[start] == hi)
-                        out->clipped_high = 1;
-                    else
-                        out->clipped_low = 1;
-                }
-            } else {
-                pend_len = len;
-                pend_prev = prev_len;
-                pend_high = x[start] == hi;
-            }
+        if (x[k] != hi && x[k] != lo) {
+            k++;
+            continue;
         }
-        prev_len = len;
-        start = k;
+        size_t len = run_fwd(x, n, k);
+        size_t before = k > 0 ? run_back(x, k - 1) : 0;
+        size_t after = k + len < n ? run_fwd(x, n, k + len) : 0;
+        size_t nb = before > after ? before : after;
+        if (len >= TF_CLIP_MIN_RUN && len >= TF_CLIP_RATIO * nb) {
+            out->clipped_samples += len;
+            out->clipped_runs++;
+            if (x[k] == hi)
+                out->clipped_high = 1;
+            else
+                out->clipped_low = 1;
+        }
+        k += len;
     }
 }
 
