@@ -1,17 +1,363 @@
-/* tankfit analyze: PLACEHOLDER until the command lands; reports itself unavailable. */
+/* tankfit analyze: conduction intervals, turn-off time, mode, resonance, harmonics, power. */
 #include "common.h"
+
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include <tankfit/siformat.h>
+
+#include "analyze_parts.h"
 
 static void help(FILE *out)
 {
-    fputs("Usage: tankfit analyze ...\nconduction intervals, turn-off time, mode, resonance, harmonics, power (not built yet)\n", out);
+    fputs("Usage: tankfit analyze FILE [OPTIONS]\n"
+          "Measure a capture of a series resonant inverter stage: every conduction lobe and\n"
+          "its device, the turn-off time available to each thyristor against its t_q, the\n"
+          "operating mode, the tank's resonance and the harmonics and power.\n\n"
+          "Channel roles (else from the design's [channels], else guessed from clear names):\n"
+          "  --current NAME          load current (required unless it can be found)\n"
+          "  --voltage NAME          bridge output voltage across the tank\n"
+          "  --cap-voltage NAME      resonant capacitor voltage\n"
+          "  --switch-voltage NAME   T1 anode-cathode voltage\n"
+          "  --gate1 .. --gate4 NAME gate (firing) signals\n\n"
+          "Stage and analysis:\n"
+          "  --design FILE           design file: topology, C, L, drops, t_q, limits, roles\n"
+          "  --topology T            single, half-bridge, full-bridge or ring-down\n"
+          "  --capacitance F         known tank capacitance (e.g. 2.2uF)\n"
+          "  --inductance H          known tank inductance\n"
+          "  --thyristor-drop V      thyristor on-state drop for the fit\n"
+          "  --diode-drop V          diode forward drop for the fit\n"
+          "  --skew S                voltage-to-current probe delay (else estimated)\n"
+          "  --harmonics N           harmonics to show (default 10)\n"
+          "  --window                Hann window instead of whole-period analysis (less exact)\n"
+          "  --band K                hysteresis band in noise sigmas (default 4)\n\n"
+          "Output:\n"
+          "  --cycles                table of every firing cycle\n"
+          "  --json                  everything as JSON on stdout\n\n",
+          out);
+    tf_cli_import_options_help(out);
+    fputs("\nCaution: these stages run at hundreds of volts and the tank capacitor stores\n"
+          "energy. Connect probes only to a de-energised, discharged stage; use differential\n"
+          "or isolated probes. Results support, never replace, a qualified engineer's\n"
+          "judgement.\n",
+          out);
+}
+
+typedef struct args {
+    const char *path, *design, *topology;
+    tf_role_names roles;
+    int cycles, json, window, harmonics;
+    double capacitance, inductance, vt, vd, skew, band;
+    int skew_set;
+    tf_import_options io;
+} args;
+
+static int quantity(const char *flag, const char *text, const char *unit, double *v)
+{
+    char u[16];
+    if (tf_parse_quantity(text, v, u, sizeof u) != 0 || !isfinite(*v) ||
+        (u[0] && strcmp(u, unit) != 0))
+        return tf_cli_usage("analyze", "%s: expected a number of %s, found '%s'", flag, unit,
+                            text);
+    return 0;
+}
+
+static int parse(int argc, char **argv, args *a)
+{
+    static const struct { const char *flag; size_t off; } names[] = {
+        {"--current", offsetof(tf_role_names, current)},
+        {"--voltage", offsetof(tf_role_names, voltage)},
+        {"--cap-voltage", offsetof(tf_role_names, cap_voltage)},
+        {"--switch-voltage", offsetof(tf_role_names, switch_voltage)},
+        {"--gate1", offsetof(tf_role_names, gate[0])},
+        {"--gate2", offsetof(tf_role_names, gate[1])},
+        {"--gate3", offsetof(tf_role_names, gate[2])},
+        {"--gate4", offsetof(tf_role_names, gate[3])}};
+    static const struct { const char *flag, *unit; size_t off; } nums[] = {
+        {"--capacitance", "F", offsetof(args, capacitance)},
+        {"--inductance", "H", offsetof(args, inductance)},
+        {"--thyristor-drop", "V", offsetof(args, vt)},
+        {"--diode-drop", "V", offsetof(args, vd)},
+        {"--skew", "s", offsetof(args, skew)},
+        {"--band", "", offsetof(args, band)}};
+    for (int i = 1; i < argc; i++) {
+        const char *v;
+        int r, done = 0;
+        if ((r = tf_cli_import_option(argc, argv, &i, &a->io)) != 0) {
+            if (r < 0)
+                return EXIT_USAGE;
+            continue;
+        }
+        for (size_t k = 0; k < sizeof names / sizeof names[0] && !done; k++)
+            if ((r = tf_cli_value(argc, argv, &i, names[k].flag, &v)) != 0) {
+                if (r < 0)
+                    return EXIT_USAGE;
+                *(const char **)((char *)&a->roles + names[k].off) = v;
+                done = 1;
+            }
+        for (size_t k = 0; k < sizeof nums / sizeof nums[0] && !done; k++)
+            if ((r = tf_cli_value(argc, argv, &i, nums[k].flag, &v)) != 0) {
+                if (r < 0 ||
+                    quantity(nums[k].flag, v, nums[k].unit, (double *)((char *)a + nums[k].off)))
+                    return EXIT_USAGE;
+                if (strcmp(nums[k].flag, "--skew") == 0)
+                    a->skew_set = 1;
+                done = 1;
+            }
+        if (done)
+            continue;
+        if ((r = tf_cli_value(argc, argv, &i, "--design", &v)) != 0) {
+            if (r < 0)
+                return EXIT_USAGE;
+            a->design = v;
+        } else if ((r = tf_cli_value(argc, argv, &i, "--topology", &v)) != 0) {
+            if (r < 0)
+                return EXIT_USAGE;
+            if (tf_topology_parse(v) == TF_TOPO_UNKNOWN)
+                return tf_cli_usage("analyze", "--topology: expected single, half-bridge, "
+                                    "full-bridge or ring-down, found '%s'", v);
+            a->topology = v;
+        } else if ((r = tf_cli_value(argc, argv, &i, "--harmonics", &v)) != 0) {
+            char *end;
+            long h = r < 0 ? 0 : strtol(v, &end, 10);
+            if (r < 0 || *end || h < 1 || h > 1000)
+                return r < 0 ? EXIT_USAGE
+                             : tf_cli_usage("analyze", "--harmonics: expected a whole number "
+                                            "1..1000, found '%s'", v);
+            a->harmonics = (int)h;
+        } else if (strcmp(argv[i], "--cycles") == 0) {
+            a->cycles = 1;
+        } else if (strcmp(argv[i], "--json") == 0) {
+            a->json = 1;
+        } else if (strcmp(argv[i], "--window") == 0) {
+            a->window = 1;
+        } else if (argv[i][0] == '-' && argv[i][1]) {
+            return tf_cli_usage("analyze", "unknown option '%s'", argv[i]);
+        } else if (a->path) {
+            return tf_cli_usage("analyze", "expected one capture file, found a second: '%s'",
+                                argv[i]);
+        } else {
+            a->path = argv[i];
+        }
+    }
+    if (!a->path)
+        return tf_cli_usage("analyze", "expected a capture file");
+    if (a->band != a->band || a->band < 0)
+        return tf_cli_usage("analyze", "--band: expected a positive number");
+    return 0;
+}
+
+static const char *si(char *buf, double v, const char *unit)
+{
+    return tf_si_format(buf, 32, v, unit, 4);
+}
+
+static void print_roles(FILE *out, const tf_capture *cap, const tf_roles *r)
+{
+    const int idx[] = {r->current, r->voltage, r->cap_voltage, r->switch_voltage,
+                       r->gate[0], r->gate[1], r->gate[2], r->gate[3]};
+    const char *const lab[] = {"current", "voltage", "capacitor voltage", "switch voltage",
+                               "gate 1", "gate 2", "gate 3", "gate 4"};
+    fputs("Channels:", out);
+    int any = 0;
+    for (int k = 0; k < 8; k++)
+        if (idx[k] >= 0) {
+            fprintf(out, "%s %s '%s'", any ? "," : "", lab[k], cap->ch[idx[k]].name);
+            any = 1;
+        }
+    fputc('\n', out);
+    if (r->guessed[0])
+        fprintf(out, "  guessed from names: %s\n", r->guessed);
+}
+
+static void print_stat(FILE *out, const char *label, const tf_stat3 *s, const char *unit)
+{
+    char a[32], b[32], c[32];
+    if (!s->count) {
+        fprintf(out, "  %-22s n/a\n", label);
+        return;
+    }
+    fprintf(out, "  %-22s %12s %12s %12s\n", label, si(a, s->min, unit), si(b, s->median, unit),
+            si(c, s->max, unit));
+}
+
+static void print_turnoff(FILE *out, const tf_segment_result *s, const tf_design *d)
+{
+    char a[32], b[32], c[32];
+    size_t best = (size_t)-1;
+    for (size_t k = 0; k < s->ncycles; k++)
+        if (isfinite(s->cycles[k].turnoff_available_s) &&
+            (best == (size_t)-1 ||
+             s->cycles[k].turnoff_available_s < s->cycles[best].turnoff_available_s))
+            best = k;
+    if (best == (size_t)-1) {
+        fputs("Shortest turn-off time available: n/a (no complete thyristor-diode pair)\n", out);
+        return;
+    }
+    const tf_cycle *cy = &s->cycles[best];
+    fprintf(out, "Shortest turn-off time available: %s (%s fired at %s)\n",
+            si(a, cy->turnoff_available_s, "s"), tf_device_name(cy->thyristor),
+            si(b, cy->start_s, "s"));
+    if (d && isfinite(d->turnoff_time_s) && d->turnoff_time_s > 0) {
+        double ratio = cy->turnoff_available_s / d->turnoff_time_s;
+        double need = isfinite(d->turnoff_ratio_min) ? d->turnoff_ratio_min : 1.0;
+        fprintf(out, "  against t_q %s (design): ratio %.3f, required %.3f: %s\n",
+                si(c, d->turnoff_time_s, "s"), ratio, need,
+                ratio >= need ? "enough" : "NOT ENOUGH (risk of commutation failure)");
+    } else {
+        fputs("  t_q not known: give a design file with [switch] turnoff_time\n", out);
+    }
+}
+
+static void print_cycles(FILE *out, const tf_segment_result *s)
+{
+    char b[8][32];
+    fprintf(out, "\nCycles (%zu):\n  %-6s %12s %12s %12s %12s %12s %12s %12s\n", s->ncycles,
+            "device", "fired", "frequency", "thyristor", "diode", "turn-off", "dead", "overlap");
+    for (size_t k = 0; k < s->ncycles; k++) {
+        const tf_cycle *c = &s->cycles[k];
+        fprintf(out, "  %-6s %12s %12s %12s %12s %12s %12s %12s\n", tf_device_name(c->thyristor),
+                si(b[0], c->start_s, "s"), si(b[1], c->frequency_hz, "Hz"),
+                si(b[2], c->thyristor_s, "s"), si(b[3], c->diode_s, "s"),
+                si(b[4], c->turnoff_available_s, "s"), si(b[5], c->dead_s, "s"),
+                si(b[6], c->overlap_s, "s"));
+    }
+}
+
+static void print_summary(FILE *out, const tf_capture *cap, const tf_analysis *a,
+                          const tf_design *d, const args *g)
+{
+    const tf_segment_result *s = a->seg;
+    char b1[32], b2[32];
+    fprintf(out, "Capture: %s (%zu samples at %s)\n", g->path, cap->n,
+            si(b1, 1.0 / cap->dt_s, "Hz"));
+    print_roles(out, cap, &a->roles);
+    fprintf(out, "Topology: %s (%s)\n", tf_topology_name(s->topology), s->topology_evidence);
+    fprintf(out, "Mode: %s (%s)\n", tf_mode_name(s->mode), s->mode_evidence);
+    fprintf(out, "Noise: sigma %s, band +/-%s; %zu lobes, %zu bursts, %zu cycles\n",
+            si(b1, s->noise_sigma_a, "A"), si(b2, s->band_a, "A"), s->nlobes, s->nbursts,
+            s->ncycles);
+    fprintf(out, "Timing:                       %12s %12s %12s\n", "min", "median", "max");
+    print_stat(out, "output frequency", &s->output_frequency_hz, "Hz");
+    print_stat(out, "thyristor conduction", &s->thyristor_s, "s");
+    print_stat(out, "diode conduction", &s->diode_s, "s");
+    print_stat(out, "turn-off available", &s->turnoff_available_s, "s");
+    print_stat(out, "dead time", &s->dead_s, "s");
+    print_stat(out, "overlap", &s->overlap_s, "s");
+    print_turnoff(out, s, d);
+    if (!s->nanomalies)
+        fputs("Anomalies: none\n", out);
+    else
+        fprintf(out, "Anomalies (%zu):\n", s->nanomalies);
+    for (size_t k = 0; k < s->nanomalies && k < 20; k++)
+        fprintf(out, "  %s  %-19s %s\n", si(b1, s->anomalies[k].time_s, "s"),
+                s->anomalies[k].kind, s->anomalies[k].text);
+    if (s->nanomalies > 20)
+        fprintf(out, "  ... and %zu more (see --json)\n", s->nanomalies - 20);
+    if (g->cycles)
+        print_cycles(out, s);
+    fputc('\n', out);
+    if (a->fit)
+        tf_cli_print_resonance(out, cap, a->fit);
+    else
+        fprintf(out, "Resonance: not available (%s)\n",
+                a->fit_error.msg[0] ? a->fit_error.msg : "skipped");
+    fputc('\n', out);
+    if (a->spec)
+        tf_cli_print_spectrum(out, cap, a->spec, g->harmonics);
+    else
+        fprintf(out, "Harmonics and power: not available (%s)\n",
+                a->spectrum_error.msg[0] ? a->spectrum_error.msg : "skipped");
+}
+
+/* Scale factors from the design's [channels] unless the command line set them. */
+static int design_scales(const tf_design *d, tf_import_options *io)
+{
+    for (size_t k = 0; k < d->nscales; k++) {
+        int given = 0;
+        for (size_t j = 0; j < io->nscale; j++)
+            given |= strcmp(io->scale[j].name, d->scales[k].column) == 0;
+        if (given)
+            continue;
+        char text[128];
+        tf_error err;
+        snprintf(text, sizeof text, "%s=%.17g", d->scales[k].column, d->scales[k].factor);
+        if (tf_import_options_add(io, TF_OPT_SCALE, text, &err) != TF_OK)
+            return tf_cli_fail(&err);
+    }
+    return 0;
 }
 
 static int run(int argc, char **argv)
 {
-    (void)argc;
-    (void)argv;
-    fputs("tankfit analyze: not built yet\n", stderr);
-    return EXIT_UNAVAIL;
+    args a;
+    memset(&a, 0, sizeof a);
+    a.capacitance = a.inductance = a.vt = a.vd = a.skew = NAN;
+    a.harmonics = 10;
+    tf_import_options_init(&a.io);
+    int rc = parse(argc, argv, &a);
+    if (rc)
+        return rc;
+    tf_design *d = NULL;
+    tf_error err;
+    tf_error_clear(&err);
+    if (a.design) {
+        d = malloc(sizeof *d);
+        if (!d) {
+            fputs("tankfit: out of memory\n", stderr);
+            return EXIT_SOFTWARE;
+        }
+        tf_design_init(d);
+        if (tf_design_load(a.design, d, &err) != TF_OK) {
+            free(d);
+            return tf_cli_fail(&err);
+        }
+        if ((rc = design_scales(d, &a.io)) != 0) {
+            free(d);
+            return rc;
+        }
+    }
+    tf_capture *cap = NULL;
+    if ((rc = tf_cli_load_capture(a.path, &a.io, &cap)) != 0) {
+        free(d);
+        return rc;
+    }
+    tf_analysis_options o;
+    tf_analysis_options_init(&o, d);
+    o.roles = a.roles;
+    if (a.topology)
+        o.segment.topology = tf_topology_parse(a.topology);
+    if (a.band > 0)
+        o.segment.band_k = a.band;
+    if (isfinite(a.capacitance))
+        o.fit.capacitance_f = a.capacitance;
+    if (isfinite(a.inductance))
+        o.fit.inductance_h = a.inductance;
+    if (isfinite(a.vt))
+        o.fit.thyristor_drop_v = a.vt;
+    if (isfinite(a.vd))
+        o.fit.diode_drop_v = a.vd;
+    if (a.skew_set) {
+        o.fit.skew_s = a.skew;
+        o.fit.skew_set = 1;
+    }
+    o.spectrum.window = a.window;
+    tf_analysis *an = NULL;
+    if (tf_analysis_run(cap, d, &o, &an, &err) != TF_OK) {
+        rc = tf_cli_fail(&err);
+    } else if (a.json) {
+        rc = tf_cli_print_json(tf_analysis_to_json(cap, an));
+    } else {
+        print_summary(stdout, cap, an, d, &a);
+        rc = fflush(stdout) == 0 ? 0 : EXIT_IOERR;
+    }
+    tf_analysis_free(an);
+    tf_capture_destroy(cap);
+    free(d);
+    return rc;
 }
 
-const tf_cli_command tf_cmd_analyze = {"analyze", "conduction intervals, turn-off time, mode, resonance, harmonics, power", run, help};
+const tf_cli_command tf_cmd_analyze = {
+    "analyze", "conduction intervals, turn-off time, mode, resonance, harmonics, power", run,
+    help};
