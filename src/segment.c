@@ -58,15 +58,22 @@ tf_status seg_find_clipping(const float *x, size_t n, double lsb, const seg_vec 
         float ext = r[j].sign > 0 ? hi : lo;
         if (x[r[j].ipk] != ext)
             continue;
-        size_t a = r[j].ipk, b = a;
-        while (a > r[j].i0 && x[a - 1] == ext)
-            a--;
-        while (b < r[j].i1 && x[b + 1] == ext)
-            b++;
+        /* the whole span between the first and last sample at the extreme: noise may
+         * pull single samples off the rail inside it */
+        size_t a = r[j].ipk, b = a, at = 0;
+        for (size_t k = r[j].ipk; k <= r[j].i1; k++)
+            if (x[k] == ext) {
+                b = k;
+                at++;
+            }
+        at--;
+        size_t w4 = (r[j].i1 - r[j].i0) / 16 + 2;
+        a = a > r[j].i0 + w4 ? a - w4 : r[j].i0;
+        b = b + w4 < r[j].i1 ? b + w4 : r[j].i1;
         /* a quantised sine stays at its top code for about 2 sqrt(2 lsb / A) / w samples */
         double dur = r[j].t_end - r[j].t_start, w = dur > 0 ? M_PI / dur : 0;
         double flat = lsb > 0 && w > 0 ? 2.0 * sqrt(2.0 * lsb / fabs((double)ext)) / w : 0;
-        if ((double)(b - a + 1) < fmax(3.0, 1.5 * flat + 1.0))
+        if ((double)(at + 1) < fmax(3.0, 1.5 * flat + 1.0))
             continue;
         seg_clip *c = seg_vec_push(clips);
         if (!c)
@@ -122,10 +129,64 @@ static int cmp_fire(const void *a, const void *b)
 
 static int is_zero_kind(seg_bkind k) { return k == SEG_B_DEAD || k == SEG_B_TOUCH; }
 
+/* Runs j..q form a chain of pieces sharing zeros (see seg_chain_fit): fit it and put
+ * every boundary on the model. Returns 1 when done. */
+static int refine_chain(const seg_input *in, seg_run *r, size_t j, size_t q)
+{
+    size_t np = q - j + 1;
+    double med = 0, lo = INFINITY, hi = 0;
+    for (size_t p = j; p <= q; p++) {
+        double d = r[p].t_end - r[p].t_start;
+        if (p == q && r[q].k_end == SEG_B_EDGE)
+            continue;
+        lo = fmin(lo, d);
+        hi = fmax(hi, d);
+        med += d;
+    }
+    size_t nfull = np - (r[q].k_end == SEG_B_EDGE);
+    if (!nfull || hi > 1.2 * lo || r[j].i1 < r[j].i0 + 10)
+        return 0;
+    med /= (double)nfull;
+    double ts = r[j].t_start, w = M_PI / med, a = 0;
+    size_t k1 = r[q].k_end == SEG_B_EDGE ? r[q].i1 : r[q].i1 - 1;
+    if (seg_chain_fit(in->x, r[j].i0 + 1, k1, in->clips, in->nclips, np, &ts, &w, &a) != 0)
+        return 0;
+    double half = M_PI / w;
+    for (size_t p = j; p <= q; p++) {
+        double t0 = ts + (double)(p - j) * half, t1 = t0 + half;
+        if (fabs(t0 - r[p].t_start) > 0.1 * half ||
+            (r[p].k_end != SEG_B_EDGE && fabs(t1 - r[p].t_end) > 0.1 * half))
+            return 0;
+    }
+    for (size_t p = j; p <= q; p++) {
+        r[p].t_start = ts + (double)(p - j) * half;
+        r[p].start_model = 1;
+        if (r[p].k_end != SEG_B_EDGE) {
+            r[p].t_end = r[p].t_start + half;
+            r[p].end_model = 1;
+        }
+    }
+    return 1;
+}
+
 void seg_refine_boundaries(const seg_input *in, seg_vec *runs)
 {
     seg_run *r = runs->data;
+    /* chains: from a lobe rising out of zero, through straight crossings, to a lobe
+     * that returns to zero (or runs off the record) */
     for (size_t j = 0; j < runs->n; j++) {
+        if (!is_zero_kind(r[j].k_start))
+            continue;
+        size_t q = j;
+        while (q + 1 < runs->n && r[q].k_end == SEG_B_DIRECT && q - j + 1 < 64)
+            q++;
+        if (q > j && (is_zero_kind(r[q].k_end) || r[q].k_end == SEG_B_EDGE) &&
+            refine_chain(in, r, j, q))
+            j = q;
+    }
+    for (size_t j = 0; j < runs->n; j++) {
+        if (r[j].start_model || r[j].end_model)
+            continue;
         double dur = r[j].t_end - r[j].t_start;
         if (!(dur > 8) || r[j].i1 < r[j].i0 + 10)
             continue;

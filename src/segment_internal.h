@@ -103,6 +103,15 @@ int seg_line_zero(const float *x, size_t a, size_t b, double *zero, double *slop
 int seg_model_zero(const float *x, size_t k0, size_t k1, const seg_clip *clips, size_t nclips,
                    double t_b, double w, double a, double *zero);
 
+/* A chain of np conduction pieces that share their zeros: piece p spans
+ * [ts + p pi/w, ts + (p+1) pi/w) and is A_p e^{-a tau} sin(w tau), tau = k - ts (index
+ * units), as when every piece starts from zero under a constant drive (a burst of a
+ * thyristor lobe and its diode lobe, or a ring-down). Least squares over [k0, k1]
+ * outside clipped stretches by Gauss-Newton on ts, w, a with the amplitudes linear.
+ * *ts, *w, *a hold the priors and receive the fit; returns 0 on success. */
+int seg_chain_fit(const float *x, size_t k0, size_t k1, const seg_clip *clips, size_t nclips,
+                  size_t np, double *ts, double *w, double *a);
+
 /* Split a same-sign stretch [k0, k1] holding the end of a diode piece (which started
  * at zero at z0) and the start of the next thyristor piece (which ends at zero at
  * z1): the split that minimises the residual of the two damped-sine pieces, with

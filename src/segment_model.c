@@ -165,6 +165,36 @@ static double piece_diff(double t, double z0, double z1, double w, double a,
            amp[1] * exp(-a * (t - z1)) * sin(w * (t - z1));
 }
 
+/* Golden-section minimum of the split residual over w in [lo, hi] (fixed a = other),
+ * or over a in [lo, hi] (fixed w = other) when over_a. */
+static double golden_w(const float *x, size_t k0, size_t k1, double z0, double z1, double lo,
+                       double hi, double other, int over_a)
+{
+    const double gr = 0.6180339887498949;
+    double amp[2];
+    size_t s;
+#define RES(v) (over_a ? split_residual(x, k0, k1, z0, z1, other, (v), &s, amp) \
+                       : split_residual(x, k0, k1, z0, z1, (v), other, &s, amp))
+    double c = hi - gr * (hi - lo), d = lo + gr * (hi - lo), fc = RES(c), fd = RES(d);
+    for (int it = 0; it < 40 && hi - lo > 1e-9 * (fabs(hi) + fabs(lo) + 1e-12); it++) {
+        if (fc < fd) {
+            hi = d;
+            d = c;
+            fd = fc;
+            c = hi - gr * (hi - lo);
+            fc = RES(c);
+        } else {
+            lo = c;
+            c = d;
+            fc = fd;
+            d = lo + gr * (hi - lo);
+            fd = RES(d);
+        }
+    }
+#undef RES
+    return 0.5 * (lo + hi);
+}
+
 int seg_split_pieces(const float *x, size_t k0, size_t k1, double z0, double z1, double *w,
                      double a, double *split)
 {
@@ -192,27 +222,12 @@ int seg_split_pieces(const float *x, size_t k0, size_t k1, double z0, double z1,
         lo = wb - (g1 - g0) / ng;
         hi = wb + (g1 - g0) / ng;
     }
-    /* golden-section search on w, the split found for each w by the sweep */
-    const double gr = 0.6180339887498949;
-    double c = hi - gr * (hi - lo), d = lo + gr * (hi - lo);
-    double fc = split_residual(x, k0, k1, z0, z1, c, a, &s, amp);
-    double fd = split_residual(x, k0, k1, z0, z1, d, a, &s, amp);
-    for (int it = 0; it < 30 && hi - lo > 1e-7 * (hi + lo); it++) {
-        if (fc < fd) {
-            hi = d;
-            d = c;
-            fd = fc;
-            c = hi - gr * (hi - lo);
-            fc = split_residual(x, k0, k1, z0, z1, c, a, &s, amp);
-        } else {
-            lo = c;
-            c = d;
-            fc = fd;
-            d = lo + gr * (hi - lo);
-            fd = split_residual(x, k0, k1, z0, z1, d, a, &s, amp);
-        }
-    }
-    double wf = 0.5 * (lo + hi);
+    /* golden-section searches: w, then the decay a, then w again (the split for each
+     * trial found by the sweep) */
+    double wf = golden_w(x, k0, k1, z0, z1, lo, hi, a, 0);
+    double af = golden_w(x, k0, k1, z0, z1, 0, 0.5 * wf, wf, 1);
+    wf = golden_w(x, k0, k1, z0, z1, 0.98 * wf, 1.02 * wf, af, 0);
+    a = af;
     if (!isfinite(split_residual(x, k0, k1, z0, z1, wf, a, &s, amp)))
         return -1;
     /* sub-sample: where the two fitted pieces meet, near the best sample split */
@@ -233,5 +248,95 @@ int seg_split_pieces(const float *x, size_t k0, size_t k1, double z0, double z1,
     }
     *w = wf;
     *split = t;
+    return 0;
+}
+
+#define CHAIN_MAX 64
+
+/* Gauss-Newton pass quantities for the chain model (see seg_chain_fit). */
+static int chain_step(const float *x, size_t k0, size_t k1, const seg_clip *clips,
+                      size_t nclips, size_t np, double ts, double w, double a, double *amp,
+                      int linear_only, double *delta)
+{
+    const size_t m = np + 3;
+    double jtj[(CHAIN_MAX + 3) * (CHAIN_MAX + 3)], jtr[CHAIN_MAX + 3];
+    memset(jtj, 0, m * m * sizeof *jtj);
+    memset(jtr, 0, m * sizeof *jtr);
+    double tau = (double)k0 - ts;
+    double e = exp(-a * tau), co = cos(w * tau), si = sin(w * tau);
+    const double de = exp(-a), dc = cos(w), ds = sin(w), half = M_PI / w;
+    size_t ci = 0, used = 0;
+    for (size_t k = k0; k <= k1; k++) {
+        while (ci < nclips && clips[ci].i1 < k)
+            ci++;
+        if (!(ci < nclips && clips[ci].i0 <= k) && tau > 0) {
+            long pl = (long)floor(tau / half);
+            size_t p = pl < 0 ? 0 : (size_t)pl >= np ? np - 1 : (size_t)pl;
+            double g = e * si, A = amp[p], v = x[k];
+            double r = v - A * g;
+            /* derivatives of A e^{-a tau} sin(w tau), tau = t - ts */
+            double jw = A * e * tau * co, ja = -A * tau * g, jt = A * e * (a * si - w * co);
+            double J[3] = {jw, ja, jt};
+            jtj[p * m + p] += g * g;
+            jtr[p] += (linear_only ? v : r) * g;
+            for (int q = 0; q < 3; q++) {
+                jtj[p * m + np + q] += g * J[q];
+                jtr[np + q] += r * J[q];
+                for (int s = 0; s < 3; s++)
+                    jtj[(np + q) * m + np + s] += J[q] * J[s];
+            }
+            used++;
+        }
+        double nc = co * dc - si * ds;
+        si = si * dc + co * ds;
+        co = nc;
+        e *= de;
+        tau += 1.0;
+    }
+    if (used < 4 * m)
+        return -1;
+    if (linear_only) {
+        for (size_t p = 0; p < np; p++) {
+            if (!(jtj[p * m + p] > 0))
+                return -1;
+            amp[p] = jtr[p] / jtj[p * m + p];
+        }
+        return 0;
+    }
+    for (size_t i = 0; i < m; i++)
+        for (size_t j = 0; j < i; j++)
+            jtj[i * m + j] = jtj[j * m + i];
+    return spd_solve(jtj, jtr, delta, m);
+}
+
+int seg_chain_fit(const float *x, size_t k0, size_t k1, const seg_clip *clips, size_t nclips,
+                  size_t np, double *ts, double *w, double *a)
+{
+    if (np < 1 || np > CHAIN_MAX || k1 <= k0 + 16 || !(*w > 0))
+        return -1;
+    double amp[CHAIN_MAX], d[CHAIN_MAX + 3];
+    double t = *ts, ww = *w, aa = *a;
+    if (chain_step(x, k0, k1, clips, nclips, np, t, ww, aa, amp, 1, d) != 0)
+        return -1;
+    for (int it = 0; it < 8; it++) {
+        if (chain_step(x, k0, k1, clips, nclips, np, t, ww, aa, amp, 0, d) != 0)
+            return -1;
+        double dw = d[np], da = d[np + 1], dts = d[np + 2];
+        if (!isfinite(dw) || !isfinite(da) || !isfinite(dts) || fabs(dw) > 0.2 * ww ||
+            fabs(dts) > 0.1 * M_PI / ww)
+            return -1;
+        for (size_t p = 0; p < np; p++)
+            amp[p] += d[p];
+        ww += dw;
+        aa += da;
+        t += dts;
+        if (fabs(dts) < 1e-5 && fabs(dw) < 1e-9 * ww)
+            break;
+    }
+    if (!(ww > 0) || !isfinite(t))
+        return -1;
+    *ts = t;
+    *w = ww;
+    *a = aa;
     return 0;
 }
