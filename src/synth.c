@@ -743,6 +743,7 @@ tf_synth *tf_synth_create(const tf_design *d, tf_error *err)
     if (tf__firing(s, 0, &tf0, &p0))
         s->t_begin = fmin(s->t_begin, tf0 - 2 * HISTORY_S);
     s->t_min_request = -INFINITY;
+    s->last_fill_t0 = -INFINITY;
     tf_seg *g = seg_push(s);
     if (!g) {
         tf_synth_destroy(s);
@@ -801,6 +802,9 @@ tf_status tf_synth_eval(tf_synth *s, double t, tf_synth_point *p, tf_error *err)
     if (t < seg_at(s, 0)->t0)
         return tf_error_set(err, TF_ERR_USAGE,
                             "tf_synth_eval: t = %.12g s is before the kept history", t);
+    /* evaluation may wander back up to the history span, no further */
+    if (t - HISTORY_S - 1e-9 > s->t_min_request)
+        s->t_min_request = t - HISTORY_S - 1e-9;
     tf_status st = tf__advance(s, t, err);
     if (st)
         return st;
@@ -912,10 +916,10 @@ tf_status tf_synth_fill(tf_synth *s, double t0, double dt, size_t n, const doubl
     }
     if (n == 0)
         return TF_OK;
-    if (t0 - smax < seg_at(s, 0)->t0)
+    if (t0 < s->last_fill_t0 || t0 - smax < seg_at(s, 0)->t0)
         return tf_error_set(err, TF_ERR_USAGE,
-                            "tf_synth_fill: t0 = %.12g s is before the kept history "
-                            "(t0 must not decrease)", t0);
+                            "tf_synth_fill: t0 = %.12g s is before the previous call's "
+                            "%.12g s (t0 must not decrease)", t0, s->last_fill_t0);
     tf_status st = tf__advance(s, t0 + (double)(n - 1) * dt - smin, err);
     if (st)
         return st;
@@ -936,6 +940,7 @@ tf_status tf_synth_fill(tf_synth *s, double t0, double dt, size_t n, const doubl
         fill_group(s, t0, dt, n, sk, out, members);
     }
     s->t_min_request = t0 - HISTORY_S - 1e-9;
+    s->last_fill_t0 = t0;
     seg_trim(s);
     return TF_OK;
 }

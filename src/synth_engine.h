@@ -124,6 +124,7 @@ struct tf_synth {
     tf_seg *seg;
     size_t seg_first, seg_count, seg_cap;
     double t_min_request;        /* earliest time callers may still ask for */
+    double last_fill_t0;         /* t0 of the previous fill (-INFINITY before) */
 
     /* per position thyristor status */
     double t_zero[2];            /* last current zero of the thyristor (-INFINITY none) */

@@ -323,14 +323,15 @@ json_t *tf_synth_truth(tf_synth *s, tf_error *err)
     if (r->topo != TF_TOPO_RING_DOWN && !d->n_firing_times) {
         A->period = 1.0 / r->f;
         double first = ceil(A->ws * r->f - 1e-9) / r->f;
-        if (first < 0)
-            first = 0;
+        if (!(first > 0))
+            first = 0; /* also turns -0 into 0 */
         A->nper = (long)floor((A->we - first) * r->f + 1e-9);
         A->ps = first;
         A->pe = first + (double)A->nper * A->period;
         A->w_harm = w0 + NHARM * 2 * M_PI * r->f;
     }
     r->acc = A;
+    r->t_min_request = INFINITY; /* keep only the segment being simulated */
     tf_status st = tf__advance(r, A->we + 1e-9, err);
     json_t *o = NULL;
     if (st == TF_OK) {

@@ -143,11 +143,690 @@ static void test_synth_half_bridge_sequence(void **state)
     free(d);
 }
 
+/* ---- energy balance ------------------------------------------------------------------ */
+
+typedef struct {
+    double src, res, res_choke, drops, w0, w1;
+} energy;
+
+/* Ideal bridge level of the node the tank hangs on, for a device (the circuit of
+ * DOMAIN.md 1, written here independently of the engine): the DC link delivers
+ * level * current. */
+static double ideal_level(const tf_design *d, tf_device dev)
+{
+    double v = d->dc_link_v;
+    switch (d->topology) {
+    case TF_TOPO_HALF_BRIDGE:
+        if (d->split_capacitor)
+            return (dev == TF_DEV_T1 || dev == TF_DEV_D1) ? v / 2 : -v / 2;
+        return (dev == TF_DEV_T1 || dev == TF_DEV_D1) ? v : 0;
+    case TF_TOPO_FULL_BRIDGE:
+        return (dev == TF_DEV_T1T2 || dev == TF_DEV_D1D2) ? v : -v;
+    case TF_TOPO_SINGLE: return v;
+    default: return 0;
+    }
+}
+
+static double device_drop(const tf_design *d, tf_device dev)
+{
+    double n = d->topology == TF_TOPO_FULL_BRIDGE ? 2 : 1;
+    if (dev == TF_DEV_UNKNOWN)
+        return 0;
+    return n * (tf_device_is_thyristor(dev) ? d->thyristor_drop_v : d->diode_drop_v);
+}
+
+static double stored(const tf_design *d, const tf_synth_point *p)
+{
+    double i = p->ch[TF_SYN_I_LOAD], vc = p->ch[TF_SYN_V_C];
+    double w = 0.5 * d->inductance_h * i * i + 0.5 * d->capacitance_f * vc * vc;
+    if (d->topology == TF_TOPO_SINGLE)
+        w += 0.5 * d->reset_inductance_h * p->choke_a * p->choke_a;
+    return w;
+}
+
+static int cmp_double(const void *a, const void *b)
+{
+    double x = *(const double *)a, y = *(const double *)b;
+    return (x > y) - (x < y);
+}
+
+/* Integrate i, R i^2 and the choke loss with 16-point Gauss-Legendre panels of an eighth
+ * of the resonant period between the interval boundaries, where the waveform is smooth. */
+static void energy_run(const tf_design *d, double t_end, energy *e)
+{
+    memset(e, 0, sizeof *e);
+    tf_synth *a = make(d), *b = make(d);
+    advance(a, t_end);
+    size_t n;
+    const tf_synth_interval *iv = tf_synth_intervals(a, &n);
+    double *cut = malloc((2 * n + 2) * sizeof *cut);
+    size_t nc = 0;
+    cut[nc++] = 0;
+    cut[nc++] = t_end;
+    for (size_t k = 0; k < n; k++) {
+        if (iv[k].start_s > 0 && iv[k].start_s < t_end)
+            cut[nc++] = iv[k].start_s;
+        if (iv[k].end_s > 0 && iv[k].end_s < t_end)
+            cut[nc++] = iv[k].end_s;
+    }
+    qsort(cut, nc, sizeof *cut, cmp_double);
+    gsl_integration_glfixed_table *gl = gsl_integration_glfixed_table_alloc(16);
+    double panel = 2 * M_PI * sqrt(d->inductance_h * d->capacitance_f) / 8;
+    tf_synth_point p;
+    tf_error err;
+    assert_int_equal(tf_synth_eval(b, 0, &p, &err), TF_OK);
+    e->w0 = stored(d, &p);
+    size_t kiv = 0;
+    for (size_t c = 0; c + 1 < nc; c++) {
+        double lo = cut[c], hi = cut[c + 1];
+        if (!(hi > lo))
+            continue;
+        double mid = 0.5 * (lo + hi);
+        while (kiv < n && !(isnan(iv[kiv].end_s) || iv[kiv].end_s > mid))
+            kiv++;
+        tf_device dev = (kiv < n && iv[kiv].start_s <= mid) ? iv[kiv].device : TF_DEV_UNKNOWN;
+        long np = (long)ceil((hi - lo) / panel);
+        double q = 0;
+        for (long k = 0; k < np; k++) {
+            double pa = lo + (hi - lo) * (double)k / (double)np;
+            double pb = lo + (hi - lo) * (double)(k + 1) / (double)np;
+            for (size_t j = 0; j < 16; j++) {
+                double t, w;
+                gsl_integration_glfixed_point(pa, pb, j, &t, &w, gl);
+                assert_int_equal(tf_synth_eval(b, t, &p, &err), TF_OK);
+                double i = p.ch[TF_SYN_I_LOAD];
+                q += w * i;
+                e->res += w * d->resistance_ohm * i * i;
+                if (d->topology == TF_TOPO_SINGLE)
+                    e->res_choke += w * d->reset_resistance_ohm * p.choke_a * p.choke_a;
+            }
+        }
+        e->src += ideal_level(d, dev) * q;
+        e->drops += device_drop(d, dev) * fabs(q);
+    }
+    assert_int_equal(tf_synth_eval(b, t_end, &p, &err), TF_OK);
+    e->w1 = stored(d, &p);
+    gsl_integration_glfixed_table_free(gl);
+    free(cut);
+    tf_synth_destroy(a);
+    tf_synth_destroy(b);
+}
+
+/* source: textbook series RLC energy balance (DOMAIN.md 2): the link delivers
+ * R integral(i^2) + change in stored energy + device drop losses. */
+static void check_energy(tf_design *d, double t_end, const char *what)
+{
+    energy e;
+    energy_run(d, t_end, &e);
+    double rhs = e.res + e.res_choke + (e.w1 - e.w0) + e.drops;
+    double scale = fmax(fabs(e.src), e.res + e.res_choke + e.drops);
+    if (getenv("TF_SYNTH_DUMP"))
+        fprintf(stderr, "%s: src %.15g res %.15g choke %.15g stored %.15g drops %.15g\n", what,
+                e.src, e.res, e.res_choke, e.w1 - e.w0, e.drops);
+    assert_true(scale > 0);
+    assert_true(fabs(e.src - rhs) <= 1e-9 * scale);
+}
+
+static void test_synth_energy_balance(void **state)
+{
+    (void)state;
+    tf_design *d = design_new(TF_TOPO_HALF_BRIDGE);
+    check_energy(d, 2e-3, "half-bridge non-overlapping");
+    d->firing_frequency_hz = 10000;
+    check_energy(d, 2e-3, "half-bridge overlapping");
+    d->split_capacitor = 1;
+    check_energy(d, 1e-3, "half-bridge split");
+    d->split_capacitor = 0;
+    d->topology = TF_TOPO_FULL_BRIDGE;
+    check_energy(d, 1e-3, "full-bridge overlapping");
+    d->topology = TF_TOPO_SINGLE;
+    d->firing_frequency_hz = 4000;
+    d->reset_inductance_h = 2e-3;
+    d->reset_resistance_ohm = 2.0;
+    check_energy(d, 2e-3, "single");
+    d->topology = TF_TOPO_RING_DOWN;
+    d->precharge_v = 400;
+    check_energy(d, 1e-3, "ring-down");
+    free(d);
+}
+
+/* ---- lobe sequences of DOMAIN.md 1 ------------------------------------------------------ */
+
+static void check_sequence(tf_design *d, const char *expect, size_t count, const char *mode)
+{
+    tf_synth *s = make(d);
+    json_t *j = truth(s);
+    dump(expect, j);
+    char seq[512];
+    sequence(j, seq, sizeof seq, count);
+    assert_string_equal(seq, expect);
+    if (mode)
+        assert_string_equal(json_string_value(json_object_get(j, "mode")), mode);
+    json_decref(j);
+    tf_synth_destroy(s);
+}
+
+static void test_synth_topology_sequences(void **state)
+{
+    (void)state;
+    tf_design *d = design_new(TF_TOPO_FULL_BRIDGE);
+    /* full bridge: T1+T2 (+), D1+D2 (-), T3+T4 (-), D3+D4 (+) */
+    check_sequence(d, "T1+T2 D1+D2 T3+T4 D3+D4 T1+T2 D1+D2 T3+T4 D3+D4 ", 8,
+                   "non-overlapping");
+    d->firing_frequency_hz = 10000;
+    check_sequence(d, "T1+T2 D1+D2 T3+T4 D3+D4 T1+T2 D1+D2 T3+T4 D3+D4 ", 8, "overlapping");
+    /* single switch: T1 (+), D1 (-), dead zone, with the reset choke */
+    d->topology = TF_TOPO_SINGLE;
+    d->firing_frequency_hz = 4000;
+    d->reset_inductance_h = 2e-3;
+    d->reset_resistance_ohm = 2.0;
+    check_sequence(d, "T1 D1 T1 D1 T1 D1 T1 D1 ", 8, "non-overlapping");
+    /* ring-down: free ringing through T1/D1 with the gate held */
+    d->topology = TF_TOPO_RING_DOWN;
+    d->precharge_v = 400;
+    check_sequence(d, "T1 D1 T1 D1 T1 D1 T1 D1 T1 D1 ", 10, NULL);
+    /* half-bridge, split capacitor pair */
+    d->topology = TF_TOPO_HALF_BRIDGE;
+    d->split_capacitor = 1;
+    d->firing_frequency_hz = 10000;
+    check_sequence(d, "T1 D1 T2 D2 T1 D1 T2 D2 ", 8, "overlapping");
+    free(d);
+}
+
+/* Split capacitor: the tank sees C1 + C2 and the output swings around half the link, so
+ * the current equals the series-capacitor case and the voltages shift by dc_link / 2. */
+static void test_synth_split_equals_series(void **state)
+{
+    (void)state;
+    tf_design *d = design_new(TF_TOPO_HALF_BRIDGE);
+    d->firing_frequency_hz = 9000;
+    tf_synth *a = make(d);
+    d->split_capacitor = 1;
+    tf_synth *b = make(d);
+    for (double t = 0; t < 1e-3; t += 7.3e-6) {
+        tf_synth_point p, q;
+        tf_error e;
+        assert_int_equal(tf_synth_eval(a, t, &p, &e), TF_OK);
+        assert_int_equal(tf_synth_eval(b, t, &q, &e), TF_OK);
+        assert_true(fabs(p.ch[TF_SYN_I_LOAD] - q.ch[TF_SYN_I_LOAD]) < 1e-9 * 100);
+        assert_true(fabs(p.ch[TF_SYN_V_C] - q.ch[TF_SYN_V_C] - 250) < 1e-9 * 1000);
+        assert_true(fabs(p.ch[TF_SYN_V_OUT] - q.ch[TF_SYN_V_OUT] - 250) < 1e-9 * 1000);
+        assert_true(fabs(p.ch[TF_SYN_V_AK1] - q.ch[TF_SYN_V_AK1]) < 1e-9 * 1000);
+    }
+    tf_synth_destroy(a);
+    tf_synth_destroy(b);
+    free(d);
+}
+
+/* source: textbook series RLC response: a free ring-down without device drops has
+ * zeros every pi / wd and successive lobe peaks in the ratio exp(-alpha pi / wd)
+ * (logarithmic decrement, DOMAIN.md 2). */
+static void test_synth_ring_down_decrement(void **state)
+{
+    (void)state;
+    tf_design *d = design_new(TF_TOPO_RING_DOWN);
+    d->precharge_v = 300;
+    d->thyristor_drop_v = 0;
+    d->diode_drop_v = 0;
+    d->turnoff_time_s = NAN;
+    tf_synth *s = make(d);
+    advance(s, 1e-3);
+    size_t n;
+    const tf_synth_interval *iv = tf_synth_intervals(s, &n);
+    double L = d->inductance_h, C = d->capacitance_f, R = d->resistance_ohm;
+    double alpha = R / (2 * L), wd = sqrt(1 / (L * C) - alpha * alpha);
+    assert_true(n > 20);
+    assert_true(tf_test_reldiff(iv[0].peak_a, 300 / (wd * L) * exp(-alpha * atan(wd / alpha) / wd) *
+                                                  sin(atan(wd / alpha))) < 1e-9);
+    for (size_t k = 0; k + 1 < 20; k++) {
+        assert_int_equal(iv[k].device, (k % 2) ? TF_DEV_D1 : TF_DEV_T1);
+        assert_true(tf_test_reldiff(iv[k].end_s - iv[k].start_s, M_PI / wd) < 1e-9);
+        assert_true(tf_test_reldiff(-iv[k + 1].peak_a / iv[k].peak_a, exp(-alpha * M_PI / wd)) <
+                    1e-9);
+    }
+    tf_synth_destroy(s);
+    /* with drops the ringing stops once a lobe cannot overcome them */
+    d->thyristor_drop_v = 1.5;
+    d->diode_drop_v = 1.0;
+    s = make(d);
+    advance(s, 20e-3);
+    tf_synth_intervals(s, &n);
+    assert_true(n > 10 && n < 400);
+    tf_synth_point p;
+    tf_error e;
+    assert_int_equal(tf_synth_eval(s, 20e-3, &p, &e), TF_OK);
+    assert_true(p.ch[TF_SYN_I_LOAD] == 0);
+    assert_true(p.device == TF_DEV_UNKNOWN);
+    tf_synth_destroy(s);
+    free(d);
+}
+
+/* ---- damping branches -------------------------------------------------------------------- */
+
+/* source: textbook series RLC response for the three damping cases; the branches must
+ * meet continuously at critical damping R = 2 sqrt(L / C). */
+static void test_synth_damping_branches_continuous(void **state)
+{
+    (void)state;
+    double L = 50e-6, C = 2e-6, E = 100, vc0 = -20;
+    double Rc = 2 * sqrt(L / C);
+    double taus[] = {1e-7, 3e-6, 1e-5, 4e-5, 2e-4};
+    for (size_t k = 0; k < sizeof taus / sizeof taus[0]; k++) {
+        double tau = taus[k], iv[3], vv[3];
+        double rs[3] = {Rc * (1 - 1e-8), Rc, Rc * (1 + 1e-8)};
+        for (int b = 0; b < 3; b++) {
+            tf_rlc2 m;
+            tf__rlc2_init(&m, L, rs[b], C, E);
+            if (b == 1) {
+                m.regime = TF_RLC_CRITICAL; /* exactly critical */
+                m.w = 0;
+            }
+            tf__rlc2_eval(&m, 0, vc0, tau, &iv[b], &vv[b]);
+            double a = m.alpha, ref;
+            if (b == 0) {
+                assert_int_equal(m.regime, TF_RLC_UNDER);
+                ref = (E - vc0) / (m.w * L) * exp(-a * tau) * sin(m.w * tau);
+            } else if (b == 1) {
+                ref = (E - vc0) / L * tau * exp(-a * tau);
+            } else {
+                assert_int_equal(m.regime, TF_RLC_OVER);
+                ref = (E - vc0) / (m.w * L) * exp(-a * tau) * sinh(m.w * tau);
+            }
+            /* textbook forms lose digits to cancellation near critical: 1e-6 */
+            assert_true(tf_test_reldiff(iv[b], ref) < 1e-6);
+        }
+        /* a relative change delta of R moves the response by O(delta (1 + (w0 tau)^2)):
+         * continuity means no jump beyond that */
+        double w0t = tau / sqrt(L * C), tol = 10 * 1e-8 * (1 + w0t * w0t);
+        assert_true(tf_test_reldiff(iv[0], iv[1]) < tol);
+        assert_true(tf_test_reldiff(iv[2], iv[1]) < tol);
+        assert_true(fabs(vv[0] - vv[1]) < tol * fabs(E - vc0));
+        assert_true(fabs(vv[2] - vv[1]) < tol * fabs(E - vc0));
+    }
+    /* strongly overdamped: the combined exponential form stays finite far out */
+    tf_rlc2 m;
+    tf__rlc2_init(&m, L, 100 * Rc, C, E);
+    double i, vc;
+    tf__rlc2_eval(&m, 0, vc0, 1.0, &i, &vc);
+    assert_true(isfinite(i) && isfinite(vc));
+    assert_true(fabs(vc - E) < 1e-6);
+    /* source: textbook overdamped response, exp(-alpha t) sinh(beta t) (E - vc0) / (beta L) */
+    double ref = (E - vc0) / (m.w * L) *
+                 (exp((m.w - m.alpha) * 2e-5) - exp(-(m.w + m.alpha) * 2e-5)) / 2;
+    tf__rlc2_eval(&m, 0, vc0, 2e-5, &i, &vc);
+    assert_true(tf_test_reldiff(i, ref) < 1e-9);
+}
+
+/* An overdamped ring-down: one T1 interval that decays without a zero. */
+static void test_synth_overdamped_ring_down(void **state)
+{
+    (void)state;
+    tf_design *d = design_new(TF_TOPO_RING_DOWN);
+    d->precharge_v = 300;
+    d->thyristor_drop_v = 0;
+    d->resistance_ohm = 3 * 2 * sqrt(d->inductance_h / d->capacitance_f);
+    tf_synth *s = make(d);
+    double L = d->inductance_h, a = d->resistance_ohm / (2 * L);
+    double beta = sqrt(a * a - 1 / (L * d->capacitance_f));
+    for (double t = 1e-6; t < 1e-3; t *= 1.7) {
+        tf_synth_point p;
+        tf_error e;
+        assert_int_equal(tf_synth_eval(s, t, &p, &e), TF_OK);
+        /* source: textbook overdamped series RLC response */
+        double ref = 300 / (beta * L) * exp(-a * t) * sinh(beta * t);
+        assert_true(tf_test_reldiff(p.ch[TF_SYN_I_LOAD], ref) < 1e-9);
+        assert_int_equal(p.device, TF_DEV_T1);
+    }
+    size_t n;
+    tf_synth_intervals(s, &n);
+    assert_int_equal(n, 1);
+    tf_synth_destroy(s);
+    free(d);
+}
+
+/* ---- turn-off time -------------------------------------------------------------------- */
+
+/* Inductance that gives a damped frequency fd with C and R (textbook: wd^2 = 1/(LC) -
+ * R^2/(4 L^2), the larger root). */
+static double inductance_for_fd(double fd, double C, double R)
+{
+    double wd = 2 * M_PI * fd;
+    return (1 + sqrt(1 - C * C * wd * wd * R * R)) / (2 * C * wd * wd);
+}
+
+/* The rule f_max = 1 / (2 t_q) (common practice): a stage ringing at fd gives each
+ * thyristor half a damped period, pi / wd = 1 / (2 fd), of diode conduction to recover.
+ * Just below f_max the turn-off time available exceeds t_q; just above it falls short and
+ * the thyristor conducts again (commutation failure). */
+static void check_rule(double fd_over_fmax, int expect_failure)
+{
+    tf_design *d = design_new(TF_TOPO_HALF_BRIDGE);
+    double tq = 20e-6, fmax = 1 / (2 * tq), fd = fd_over_fmax * fmax;
+    d->turnoff_time_s = tq;
+    d->inductance_h = inductance_for_fd(fd, d->capacitance_f, d->resistance_ohm);
+    d->duration_s = 1e-3;
+    tf_synth *s = make(d);
+    json_t *j = truth(s);
+    dump("rule", j);
+    assert_true(tf_test_reldiff(json_real_value(json_object_get(j, "rule_f_max_hz")), fmax) <
+                1e-12);
+    json_t *tank = json_object_get(j, "tank");
+    assert_true(tf_test_reldiff(json_real_value(json_object_get(tank, "fd_hz")), fd) < 1e-9);
+    json_t *to = json_array_get(json_object_get(j, "turnoff"), 0);
+    double toff = json_real_value(json_object_get(to, "t_off_s"));
+    assert_true(tf_test_reldiff(toff, 1 / (2 * fd)) < 1e-9);
+    assert_true(expect_failure ? toff < tq : toff > tq);
+    assert_int_equal(json_is_true(json_object_get(to, "failed")), expect_failure);
+    json_t *fl = json_object_get(j, "commutation_failures");
+    if (expect_failure) {
+        assert_true(json_array_size(fl) > 0);
+        json_t *f = json_array_get(fl, 0);
+        assert_string_equal(json_string_value(json_object_get(f, "thyristor")), "T1");
+        assert_string_equal(json_string_value(json_object_get(f, "kind")), "re-conduction");
+        assert_true(tf_test_reldiff(json_real_value(json_object_get(f, "t_off_s")),
+                                    1 / (2 * fd)) < 1e-9);
+        /* the re-conduction is simulated: a second T1 interval follows D1 at once */
+        json_t *ivs = json_object_get(j, "intervals");
+        json_t *third = json_array_get(ivs, 2);
+        assert_string_equal(json_string_value(json_object_get(third, "device")), "T1");
+        assert_true(tf_test_reldiff(json_real_value(json_object_get(third, "start_s")),
+                                    2 / (2 * fd)) < 1e-9);
+    } else {
+        assert_int_equal(json_array_size(fl), 0);
+    }
+    json_decref(j);
+    tf_synth_destroy(s);
+    free(d);
+}
+
+static void test_synth_turnoff_rule_fmax(void **state)
+{
+    (void)state;
+    check_rule(0.98, 0);
+    check_rule(1.02, 1);
+}
+
+/* Overlapping (DOMAIN.md 1, 3): T2 fired while D1 conducts takes over the current, which
+ * keeps its sign while its slope breaks by the level step / L (textbook: L di/dt = v);
+ * the time available to T1 ends at that firing. */
+static void test_synth_overlapping_commutation(void **state)
+{
+    (void)state;
+    tf_design *d = design_new(TF_TOPO_HALF_BRIDGE);
+    d->firing_frequency_hz = 10000;
+    tf_synth *s = make(d);
+    json_t *j = truth(s);
+    double L = d->inductance_h, C = d->capacitance_f, R = d->resistance_ohm;
+    double wd = sqrt(1 / (L * C) - R * R / (4 * L * L)), tf2 = 0.5 / d->firing_frequency_hz;
+    json_t *ivs = json_object_get(j, "intervals");
+    json_t *d1 = json_array_get(ivs, 1), *t2 = json_array_get(ivs, 2);
+    assert_string_equal(json_string_value(json_object_get(d1, "device")), "D1");
+    assert_string_equal(json_string_value(json_object_get(t2, "device")), "T2");
+    assert_true(fabs(json_real_value(json_object_get(d1, "end_s")) - tf2) < 1e-15);
+    assert_true(fabs(json_real_value(json_object_get(t2, "start_s")) - tf2) < 1e-15);
+    json_t *to = json_array_get(json_object_get(j, "turnoff"), 0);
+    assert_true(tf_test_reldiff(json_real_value(json_object_get(to, "t_off_s")),
+                                tf2 - M_PI / wd) < 1e-9);
+    assert_true(fabs(json_real_value(json_object_get(to, "forward_s")) - tf2) < 1e-15);
+    assert_string_equal(json_string_value(json_object_get(j, "mode")), "overlapping");
+    /* t_off = 50 us - pi / wd = 18.5 us < t_q = 20 us: shoot-through risk recorded */
+    json_t *f = json_array_get(json_object_get(j, "commutation_failures"), 0);
+    assert_non_null(f);
+    assert_string_equal(json_string_value(json_object_get(f, "kind")), "shoot-through");
+    json_decref(j);
+
+    tf_synth_point a, b;
+    tf_error e;
+    assert_int_equal(tf_synth_eval(s, tf2 - 1e-10, &a, &e), TF_OK);
+    assert_int_equal(tf_synth_eval(s, tf2 + 1e-10, &b, &e), TF_OK);
+    assert_int_equal(a.device, TF_DEV_D1);
+    assert_int_equal(b.device, TF_DEV_T2);
+    assert_true(a.ch[TF_SYN_I_LOAD] < 0 && b.ch[TF_SYN_I_LOAD] < 0);
+    /* continuous current: both sides extrapolated to the firing instant agree */
+    double ia = a.ch[TF_SYN_I_LOAD] + a.didt_a_s * 1e-10;
+    double ib = b.ch[TF_SYN_I_LOAD] - b.didt_a_s * 1e-10;
+    assert_true(fabs(ia - ib) < 1e-9 * fabs(ia));
+    double step = (d->dc_link_v + d->diode_drop_v) - d->thyristor_drop_v; /* node level drop */
+    /* the slopes are 0.2 ns apart: d2i/dt2 * 2e-10 s is about 1e-5 of the step */
+    assert_true(tf_test_reldiff(a.didt_a_s - b.didt_a_s, step / L) < 1e-4);
+    assert_true(fabs(a.ch[TF_SYN_V_OUT] - b.ch[TF_SYN_V_OUT] - step) < 1e-9);
+    tf_synth_destroy(s);
+    free(d);
+}
+
+/* Stray inductance in the T1/D1 loop (DOMAIN.md 3): during D1 the anode-cathode voltage
+ * is -V_D + L_s di/dt, so it turns positive once the diode current falls fast enough.
+ * The crossing is found here independently on the textbook D1 lobe. */
+static void test_synth_stray_inductance_reverse_bias(void **state)
+{
+    (void)state;
+    tf_design *d = design_new(TF_TOPO_HALF_BRIDGE);
+    d->stray_inductance_h = 2e-6;
+    tf_synth *s = make(d);
+    json_t *j = truth(s);
+    double L = d->inductance_h, C = d->capacitance_f, R = d->resistance_ohm;
+    double alpha = R / (2 * L), wd = sqrt(1 / (L * C) - alpha * alpha), tz = M_PI / wd;
+    /* source: textbook series RLC response, T1 lobe then D1 lobe from zero current */
+    double E1 = d->dc_link_v - d->thyristor_drop_v, vc0 = d->dc_link_v / 2;
+    double vc1 = E1 + (E1 - vc0) * exp(-alpha * tz);
+    double Ed = d->dc_link_v + d->diode_drop_v, A = (Ed - vc1) / (wd * L); /* A < 0 */
+#define DIDT(u) (A * exp(-alpha * (u)) * (wd * cos(wd * (u)) - alpha * sin(wd * (u))))
+    double lo = 0, hi = tz; /* Ls di/dt - V_D: negative at 0, positive at the end */
+    double g = d->stray_inductance_h;
+    assert_true(g * DIDT(lo) - d->diode_drop_v < 0 && g * DIDT(hi) - d->diode_drop_v > 0);
+    for (int it = 0; it < 200; it++) {
+        double m = 0.5 * (lo + hi);
+        if (g * DIDT(m) - d->diode_drop_v < 0)
+            lo = m;
+        else
+            hi = m;
+    }
+    json_t *to = json_array_get(json_object_get(j, "turnoff"), 0);
+    double trev = json_real_value(json_object_get(to, "t_reverse_s"));
+    double toff = json_real_value(json_object_get(to, "t_off_s"));
+    assert_true(tf_test_reldiff(trev, 0.5 * (lo + hi)) < 1e-9);
+    assert_true(trev < toff);
+    tf_synth_point p;
+    tf_error e;
+    double tm = tz + 0.3 * tz;
+    assert_int_equal(tf_synth_eval(s, tm, &p, &e), TF_OK);
+    assert_true(fabs(p.ch[TF_SYN_V_AK1] - (-d->diode_drop_v + g * DIDT(0.3 * tz))) < 1e-9 * 10);
+#undef DIDT
+    json_decref(j);
+    tf_synth_destroy(s);
+    free(d);
+}
+
+/* Firing T2 while T1 still conducts shorts the link: recorded, and the tank model is
+ * declared not valid from then on. */
+static void test_synth_fired_while_conducting(void **state)
+{
+    (void)state;
+    tf_design *d = design_new(TF_TOPO_HALF_BRIDGE);
+    d->firing_frequency_hz = 20000; /* T2 at 25 us, T1 conducts until 31.5 us */
+    tf_synth *s = make(d);
+    json_t *j = truth(s);
+    json_t *f = json_array_get(json_object_get(j, "commutation_failures"), 0);
+    assert_non_null(f);
+    assert_string_equal(json_string_value(json_object_get(f, "kind")), "fired-while-conducting");
+    assert_true(fabs(json_real_value(json_object_get(f, "t_s")) - 25e-6) < 1e-15);
+    assert_true(fabs(json_real_value(json_object_get(j, "tank_model_valid_until_s")) - 25e-6) <
+                1e-15);
+    json_decref(j);
+    tf_synth_destroy(s);
+    free(d);
+}
+
+/* ---- streaming fill ---------------------------------------------------------------------- */
+
+static void test_synth_fill_matches_eval(void **state)
+{
+    (void)state;
+    tf_design *d = design_new(TF_TOPO_FULL_BRIDGE);
+    d->firing_frequency_hz = 9000;
+    d->stray_inductance_h = 1e-6;
+    tf_synth *a = make(d), *b = make(d);
+    enum { N = 1000, CHUNKS = 7 };
+    float buf[TF_SYN_NCHAN][N];
+    float *out[TF_SYN_NCHAN];
+    for (int c = 0; c < TF_SYN_NCHAN; c++)
+        out[c] = buf[c];
+    double skew[TF_SYN_NCHAN] = {0, 40e-9, -25e-9, 0, 0, 0, 0, 0};
+    double dt = 1e-7, t0 = -2e-5;
+    tf_error e;
+    for (int k = 0; k < CHUNKS; k++) {
+        double tk = t0 + k * N * dt;
+        assert_int_equal(tf_synth_fill(a, tk, dt, N, skew, out, &e), TF_OK);
+        for (int n = 0; n < N; n += 3) {
+            for (int c = 0; c < TF_SYN_NCHAN; c++) {
+                tf_synth_point p;
+                assert_int_equal(tf_synth_eval(b, tk + n * dt - skew[c], &p, &e), TF_OK);
+                double scale = c == TF_SYN_I_LOAD ? 200 : c < 4 ? 1000 : 1;
+                if (fabs(buf[c][n] - p.ch[c]) > 2e-7 * scale)
+                    fail_msg("chunk %d sample %d channel %d: %.9g vs %.9g", k, n, c,
+                             (double)buf[c][n], p.ch[c]);
+            }
+        }
+    }
+    /* going back beyond the history is refused */
+    assert_int_equal(tf_synth_fill(a, 0, dt, N, skew, out, &e), TF_ERR_USAGE);
+    double bad[TF_SYN_NCHAN] = {2e-3};
+    assert_int_equal(tf_synth_fill(a, 1, dt, 1, bad, out, &e), TF_ERR_USAGE);
+    assert_int_equal(tf_synth_fill(a, 1, 0, 1, NULL, out, &e), TF_ERR_USAGE);
+    /* the full bridge has all four gates; the first pulse is 10 us wide */
+    assert_true(tf_synth_has_channel(a, TF_SYN_G4));
+    tf_synth_destroy(a);
+    tf_synth_destroy(b);
+    free(d);
+}
+
+/* A long streamed run keeps a short history only. */
+static void test_synth_fill_memory_bounded(void **state)
+{
+    (void)state;
+    tf_design *d = design_new(TF_TOPO_HALF_BRIDGE);
+    d->firing_frequency_hz = 5000;
+    tf_synth *s = make(d);
+    enum { N = 4096 };
+    static float buf[2][N];
+    float *out[TF_SYN_NCHAN] = {buf[0], buf[1]};
+    tf_error e;
+    size_t early = 0, late = 0;
+    double dt = 1e-6;
+    for (int k = 0; k < 100; k++) { /* 0.4 s, 4000 lobes */
+        assert_int_equal(tf_synth_fill(s, k * N * dt, dt, N, NULL, out, &e), TF_OK);
+        size_t *m = k < 10 ? &early : &late;
+        if (s->seg_count > *m)
+            *m = s->seg_count;
+    }
+    /* about 6 segments per period over one 4 ms chunk plus 1 ms of history */
+    assert_true(early < 200);
+    assert_true(late <= early + 2);
+    size_t n;
+    tf_synth_intervals(s, &n);
+    assert_true(n > 3900);
+    tf_synth_destroy(s);
+    free(d);
+}
+
+/* ---- design checks and schedule ---------------------------------------------------------- */
+
+static void test_synth_create_errors(void **state)
+{
+    (void)state;
+    tf_design *d = design_new(TF_TOPO_HALF_BRIDGE);
+    tf_error e;
+    d->capacitance_f = 0;
+    assert_null(tf_synth_create(d, &e));
+    assert_int_equal(e.code, TF_ERR_DATA);
+    assert_non_null(strstr(e.msg, "[tank] capacitance"));
+    d->capacitance_f = 2e-6;
+    d->firing_frequency_hz = NAN;
+    assert_null(tf_synth_create(d, &e));
+    assert_non_null(strstr(e.msg, "firing_frequency"));
+    d->firing_frequency_hz = 1000;
+    d->topology = TF_TOPO_SINGLE;
+    assert_null(tf_synth_create(d, &e));
+    assert_non_null(strstr(e.msg, "reset_inductance"));
+    d->topology = TF_TOPO_RING_DOWN;
+    assert_null(tf_synth_create(d, &e));
+    assert_non_null(strstr(e.msg, "precharge"));
+    d->topology = TF_TOPO_UNKNOWN;
+    assert_null(tf_synth_create(d, &e));
+    assert_non_null(strstr(e.msg, "topology"));
+    d->topology = TF_TOPO_HALF_BRIDGE;
+    d->n_firing_times = 2;
+    d->firing_times_s[0] = 1e-3;
+    d->firing_times_s[1] = 0.5e-3;
+    assert_null(tf_synth_create(d, &e));
+    assert_non_null(strstr(e.msg, "ascending"));
+    d->n_firing_times = 0;
+    d->duration_s = NAN;
+    tf_synth *s = make(d);
+    assert_null(tf_synth_truth(s, &e));
+    assert_non_null(strstr(e.msg, "duration"));
+    tf_synth_destroy(s);
+    tf_synth_destroy(NULL);
+    free(d);
+}
+
+/* Explicit firing instants alternate T1, T2; a load schedule changes L for later lobes,
+ * whose length follows pi / wd of the new value (textbook series RLC response). */
+static void test_synth_explicit_firings_and_schedule(void **state)
+{
+    (void)state;
+    tf_design *d = design_new(TF_TOPO_HALF_BRIDGE);
+    d->n_firing_times = 4;
+    d->firing_times_s[0] = 0;
+    d->firing_times_s[1] = 200e-6;
+    d->firing_times_s[2] = 500e-6;
+    d->firing_times_s[3] = 700e-6;
+    d->nschedule = 2;
+    d->sched_t_s[0] = 0;
+    d->sched_t_s[1] = 400e-6;
+    d->sched_r_ohm[0] = d->sched_r_ohm[1] = NAN;
+    d->sched_l_h[0] = 50e-6;
+    d->sched_l_h[1] = 80e-6;
+    d->duration_s = 1e-3;
+    tf_synth *s = make(d);
+    advance(s, 1e-3);
+    size_t n;
+    const tf_synth_interval *iv = tf_synth_intervals(s, &n);
+    assert_int_equal(n, 8);
+    double C = d->capacitance_f, R = d->resistance_ohm;
+    double L1 = 50e-6 + 30e-6 * 200.0 / 400.0, L2 = 80e-6;
+    double wd0 = sqrt(1 / (50e-6 * C) - R * R / (4 * 50e-6 * 50e-6));
+    double wd1 = sqrt(1 / (L1 * C) - R * R / (4 * L1 * L1));
+    double wd2 = sqrt(1 / (L2 * C) - R * R / (4 * L2 * L2));
+    assert_int_equal(iv[2].device, TF_DEV_T2);
+    assert_true(fabs(iv[2].start_s - 200e-6) < 1e-15);
+    assert_true(tf_test_reldiff(iv[0].end_s - iv[0].start_s, M_PI / wd0) < 1e-9);
+    assert_true(tf_test_reldiff(iv[2].end_s - iv[2].start_s, M_PI / wd1) < 1e-9);
+    assert_int_equal(iv[6].device, TF_DEV_T2);
+    assert_true(tf_test_reldiff(iv[6].end_s - iv[6].start_s, M_PI / wd2) < 1e-9);
+    tf_synth_destroy(s);
+    free(d);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_synth_first_lobe_textbook),
         cmocka_unit_test(test_synth_half_bridge_sequence),
+        cmocka_unit_test(test_synth_energy_balance),
+        cmocka_unit_test(test_synth_topology_sequences),
+        cmocka_unit_test(test_synth_split_equals_series),
+        cmocka_unit_test(test_synth_ring_down_decrement),
+        cmocka_unit_test(test_synth_damping_branches_continuous),
+        cmocka_unit_test(test_synth_overdamped_ring_down),
+        cmocka_unit_test(test_synth_turnoff_rule_fmax),
+        cmocka_unit_test(test_synth_overlapping_commutation),
+        cmocka_unit_test(test_synth_stray_inductance_reverse_bias),
+        cmocka_unit_test(test_synth_fired_while_conducting),
+        cmocka_unit_test(test_synth_fill_matches_eval),
+        cmocka_unit_test(test_synth_fill_memory_bounded),
+        cmocka_unit_test(test_synth_create_errors),
+        cmocka_unit_test(test_synth_explicit_firings_and_schedule),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
