@@ -229,7 +229,7 @@ static char *reader(char *str, int num, void *stream)
         content--;
     /* inih would split a longer line silently; its buffer holds num - 1 bytes
      * with the line ending */
-    if (n + 1 > (size_t)num || n >= sizeof st->raw)
+    if (content + 3 > (size_t)num || n >= sizeof st->raw)
         return fail(st, 0, "line is longer than %d characters; split a long list or "
                     "notes over indented continuation lines",
                     (int)((size_t)num < sizeof st->raw ? num : (int)sizeof st->raw) - 3),
@@ -290,7 +290,7 @@ static int parse_qty(pstate *st, const char *what, tf_dim dim, tf_range range,
         if (strchr(q.suffix, ','))
             return fail(st, col, "%s: expected '.' as the decimal mark, found '%s'", what,
                         excerpt(ex, sizeof ex, text));
-        return fail(st, col, "%s: expected an SI prefix (f p n u µ m k M G) and a unit after "
+        return fail(st, col, "%s: expected an SI prefix (such as n, u, µ, m, k, M) and a unit after "
                     "the number, found '%s' in '%s'", what, excerpt(ex2, sizeof ex2, q.suffix),
                     excerpt(ex, sizeof ex, text));
     case TF_QTY_RANGE:

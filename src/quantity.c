@@ -55,13 +55,15 @@ const char *tf_unit_long_name(const char *unit)
 }
 
 /* Prefix at the start of s: its power of ten and byte length, or 0 when none
- * (SI Brochure, 9th ed., table 7; micro as u, the micro sign or Greek mu). */
+ * (SI Brochure, 9th ed., table 7: the powers of 1000, which tf_si_format prints;
+ * micro as u, the micro sign or Greek mu). */
 static int prefix_of(const char *s, int *exponent)
 {
     static const struct { const char *p; int e; } prefixes[] = {
         {"\xc2\xb5", -6}, {"\xce\xbc", -6},
-        {"f", -15}, {"p", -12}, {"n", -9}, {"u", -6}, {"m", -3},
-        {"k", 3}, {"M", 6}, {"G", 9}, {NULL, 0}};
+        {"y", -24}, {"z", -21}, {"a", -18}, {"f", -15}, {"p", -12}, {"n", -9},
+        {"u", -6}, {"m", -3}, {"k", 3}, {"M", 6}, {"G", 9}, {"T", 12}, {"P", 15},
+        {"E", 18}, {"Z", 21}, {"Y", 24}, {NULL, 0}};
     for (int i = 0; prefixes[i].p; i++) {
         size_t l = strlen(prefixes[i].p);
         if (strncmp(s, prefixes[i].p, l) == 0) {

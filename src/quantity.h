@@ -25,8 +25,9 @@ typedef struct tf_quantity {
 
 /* Parse text (NUL-terminated): optional white space, a decimal number (sign,
  * digits, optional fraction, optional e/E exponent; no hex, inf or nan), optional
- * white space, an optional SI prefix (f p n u µ μ m k M G: SI Brochure, 9th ed.,
- * table 7) and an optional unit, optional white space. Ohm may be written ohm,
+ * white space, an optional SI prefix (y z a f p n u µ μ m k M G T P E Z Y: the
+ * powers of 1000 of SI Brochure, 9th ed., table 7) and an optional unit, optional
+ * white space. Ohm may be written ohm,
  * Ohm, Ω (U+03A9) or Ω (U+2126); "Sa/s" is "S/s". Percent and full scale ("FS")
  * take no prefix. On TF_QTY_OK fills q; on failure q->suffix still holds the
  * text after the number when there was one. */

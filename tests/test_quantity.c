@@ -5,6 +5,8 @@
 #include <string.h>
 #include <tankfit/import.h>
 
+#include <tankfit/siformat.h>
+
 #include "quantity.h"
 
 static void check(const char *text, double want, const char *unit)
@@ -41,6 +43,14 @@ static void test_quantity_prefixes(void **state)
     check("1 MHz", 1e6, "Hz");
     check("1 GHz", 1e9, "Hz");
     check("4.7 \xce\xbc" "H", 4.7e-6, "H"); /* Greek small mu U+03BC */
+    check("1 yF", 1e-24, "F");
+    check("1 zF", 1e-21, "F");
+    check("1 aF", 1e-18, "F");
+    check("1 TW", 1e12, "W");
+    check("1 PHz", 1e15, "Hz");
+    check("1 EHz", 1e18, "Hz");
+    check("1 ZHz", 1e21, "Hz");
+    check("1 YHz", 1e24, "Hz");
 }
 
 /* A prefix scales the decimal exponent, so the result is the correctly rounded
@@ -121,6 +131,29 @@ static void test_quantity_detail(void **state)
     assert_string_equal(tf_unit_long_name(""), "a plain number");
 }
 
+/* What reports print, the reader reads back (consistency of tf_si_format and
+ * tf_parse_quantity over 48 decades; the printed value is rounded to `digits`
+ * significant digits, so the two agree within half a unit in the last digit). */
+static void test_quantity_reads_printed(void **state)
+{
+    (void)state;
+    static const char *const units[] = {"F", "H", "s", "Hz", "V", "A", "ohm", "S/s", "%", ""};
+    char buf[64], u[16];
+    for (size_t k = 0; k < sizeof units / sizeof units[0]; k++)
+        for (int e = -24; e <= 24; e++)
+            for (int digits = 1; digits <= 9; digits += 4) {
+                double x = (e % 2 ? -1.0 : 1.0) * 1.2345678901234 * pow(10.0, e), v;
+                tf_si_format(buf, sizeof buf, x, units[k], digits);
+                if (tf_parse_quantity(buf, &v, u, sizeof u) != 0)
+                    fail_msg("cannot read '%s'", buf);
+                /* percent is printed as given, read as a fraction */
+                double want = strcmp(units[k], "%") == 0 ? x / 100 : x;
+                if (!(tf_test_reldiff(v, want) <= 0.5 * pow(10.0, 1 - digits) * 1.0001))
+                    fail_msg("'%s' read as %.17g, printed from %.17g", buf, v, x);
+                assert_string_equal(u, units[k]);
+            }
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -129,6 +162,7 @@ int main(void)
         cmocka_unit_test(test_quantity_spellings),
         cmocka_unit_test(test_quantity_rejects),
         cmocka_unit_test(test_quantity_detail),
+        cmocka_unit_test(test_quantity_reads_printed),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

@@ -125,7 +125,7 @@ void tf_design_init(tf_design *d);
  * farads (F), found henries (H) in '20 uH'"), bad number, bad choice, a value out
  * of range, list entries not increasing, too many entries, keys that contradict
  * the topology. On error d holds the defaults again. The struct is large
- * (about 60 kB): allocate it, do not put it on a small stack. Whether the keys a
+ * (about 47 kB): allocate it, do not put it on a small stack. Whether the keys a
  * use needs are present is checked separately by tf_design_validate. */
 tf_status tf_design_load(const char *path, tf_design *d, tf_error *err);
 
