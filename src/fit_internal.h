@@ -1,0 +1,56 @@
+/* Private pieces shared by the fitter's source files (src/fit*.c). */
+#ifndef TF_FIT_INTERNAL_H
+#define TF_FIT_INTERNAL_H
+
+#include <stddef.h>
+#include <tankfit/fit.h>
+
+/* Turn GSL's abort-on-error handler off once per process (the library never exits). */
+void tf_fit_gsl_quiet(void);
+
+/* Median of x[0..n-1] (x is reordered). NAN when n == 0. */
+double tf_fit_median(double *x, size_t n);
+
+/* Median, 1.4826 MAD, min, max of the finite values of x[0..n-1] with a
+ * stride of `stride` doubles; scratch holds n doubles. */
+void tf_fit_spread_of(const double *x, size_t n, size_t stride, double *scratch,
+                      tf_fit_spread *out);
+
+/* Result of the v-i identification over a set of bursts. */
+typedef struct tf_vi_result {
+    int valid;
+    double r_ohm, u_r_ohm, l_h, u_l_h, c_f, u_c_f;
+    double skew_s, u_skew_s;
+    int skew_estimated;
+    size_t bursts_used;
+} tf_vi_result;
+
+/* Burst sample window [i0, i1) for the v-i and power methods. */
+typedef struct tf_window { size_t i0, i1; size_t burst; } tf_window;
+
+/* v-i identification on the windows (integrated circuit equation, linear least
+ * squares per window), with the skew estimated when skew_set == 0. per_burst_*
+ * (nwin each, may be NULL) receive each window's R, L, C. */
+tf_status tf_vi_identify(const float *v, const float *i, size_t n, double dt_s,
+                         const tf_window *win, size_t nwin, int skew_set, double skew_s,
+                         double search_s, tf_vi_result *out, double *per_r, double *per_l,
+                         double *per_c, tf_error *err);
+
+/* Power method R = mean(v i) / mean(i^2) over [i0, i1) with v delayed back by
+ * skew_s; u from the spread over the given period boundaries (nb indices,
+ * nb >= 2). */
+tf_status tf_power_resistance(const float *v, const float *i, size_t n, double dt_s,
+                              double skew_s, const size_t *bounds, size_t nb, double *r_ohm,
+                              double *u_ohm, tf_error *err);
+
+/* Value of channel x at fractional sample position pos (linear interpolation,
+ * clamped at the ends). */
+double tf_fit_interp(const float *x, size_t n, double pos);
+
+/* The same fit as tf_dsfit_run, with GSL's gsl_multifit_nlinear (trust-region
+ * Levenberg-Marquardt, analytic Jacobian) in place of the streamed normal
+ * equations: slower, kept as a cross-check for tests and benchmarks. */
+tf_status tf_dsfit_run_gsl(tf_dsfit_workspace *w, const float *x, size_t n, double dt_s,
+                           const tf_dsfit_options *o, tf_dsfit *out, tf_error *err);
+
+#endif

@@ -1,0 +1,669 @@
+/* Damped-sine fit of one burst: matrix pencil start, then Levenberg-Marquardt (GSL). */
+#include "fit_internal.h"
+
+#include <math.h>
+#include <pthread.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include <gsl/gsl_blas.h>
+#include <gsl/gsl_eigen.h>
+#include <gsl/gsl_errno.h>
+#include <gsl/gsl_linalg.h>
+#include <gsl/gsl_multifit_nlinear.h>
+
+#define PENCIL_MAX 128   /* decimated samples used by the matrix pencil */
+#define NCACHE 6         /* GSL workspaces kept per thread (by padded length) */
+#define RESYNC 256       /* recompute exp/cos/sin exactly every RESYNC samples */
+
+typedef struct cache_ent {
+    size_t n, p;
+    unsigned long used;
+    gsl_multifit_nlinear_workspace *w;
+} cache_ent;
+
+struct tf_dsfit_workspace {
+    cache_ent cache[NCACHE];
+    unsigned long tick;
+    double hank[PENCIL_MAX * PENCIL_MAX], vmat[PENCIL_MAX * PENCIL_MAX];
+    double sv[PENCIL_MAX], svwork[PENCIL_MAX], dec[PENCIL_MAX];
+    gsl_eigen_nonsymm_workspace *eig;
+    gsl_matrix *covar[2];    /* 4x4 and 5x5 */
+    double *cross[2], *csign[2]; /* crossing positions (samples) and drop signs */
+    size_t ccap[2];
+};
+
+static pthread_once_t gsl_once = PTHREAD_ONCE_INIT;
+static void gsl_off(void) { gsl_set_error_handler_off(); }
+void tf_fit_gsl_quiet(void) { pthread_once(&gsl_once, gsl_off); }
+
+tf_dsfit_workspace *tf_dsfit_workspace_create(void)
+{
+    tf_fit_gsl_quiet();
+    tf_dsfit_workspace *w = calloc(1, sizeof *w);
+    if (!w)
+        return NULL;
+    w->eig = gsl_eigen_nonsymm_alloc(3);
+    w->covar[0] = gsl_matrix_alloc(4, 4);
+    w->covar[1] = gsl_matrix_alloc(5, 5);
+    if (!w->eig || !w->covar[0] || !w->covar[1]) {
+        tf_dsfit_workspace_destroy(w);
+        return NULL;
+    }
+    return w;
+}
+
+void tf_dsfit_workspace_destroy(tf_dsfit_workspace *w)
+{
+    if (!w)
+        return;
+    for (int k = 0; k < NCACHE; k++)
+        if (w->cache[k].w)
+            gsl_multifit_nlinear_free(w->cache[k].w);
+    if (w->eig)
+        gsl_eigen_nonsymm_free(w->eig);
+    for (int k = 0; k < 2; k++)
+        if (w->covar[k])
+            gsl_matrix_free(w->covar[k]);
+    for (int k = 0; k < 2; k++) {
+        free(w->cross[k]);
+        free(w->csign[k]);
+    }
+    free(w);
+}
+
+double tf_q_from_log_decrement(double delta)
+{
+    /* source: textbook series RLC response (DOMAIN.md section 2) */
+    const double r = delta / (2.0 * M_PI);
+    return (M_PI / delta) * sqrt(1.0 + r * r);
+}
+
+/* Round n up so that padding is at most 1/8: few distinct workspace sizes. */
+static size_t padded_length(size_t n)
+{
+    size_t step = 1;
+    while ((step << 4) <= n)
+        step <<= 1;
+    return (n + step - 1) / step * step;
+}
+
+static gsl_multifit_nlinear_workspace *get_workspace(tf_dsfit_workspace *w, size_t n, size_t p)
+{
+    size_t np = padded_length(n);
+    int victim = 0;
+    w->tick++;
+    for (int k = 0; k < NCACHE; k++) {
+        if (w->cache[k].w && w->cache[k].n == np && w->cache[k].p == p) {
+            w->cache[k].used = w->tick;
+            return w->cache[k].w;
+        }
+        if (!w->cache[k].w || w->cache[k].used < w->cache[victim].used)
+            victim = k;
+        if (!w->cache[k].w)
+            break;
+    }
+    if (w->cache[victim].w)
+        gsl_multifit_nlinear_free(w->cache[victim].w);
+    gsl_multifit_nlinear_parameters par = gsl_multifit_nlinear_default_parameters();
+    par.trs = gsl_multifit_nlinear_trs_lm;
+    par.scale = gsl_multifit_nlinear_scale_more;
+    par.solver = gsl_multifit_nlinear_solver_cholesky;
+    w->cache[victim].w = gsl_multifit_nlinear_alloc(gsl_multifit_nlinear_trust, &par, np, p);
+    w->cache[victim].n = np;
+    w->cache[victim].p = p;
+    w->cache[victim].used = w->tick;
+    return w->cache[victim].w;
+}
+
+/* ---- the model -------------------------------------------------------------------- */
+
+typedef struct model_ctx {
+    const float *x;
+    size_t n;              /* real samples; rows beyond are padding (zero) */
+    size_t p;              /* 4 or 5 */
+    const double *cross;   /* crossing positions in samples, ascending */
+    const double *dsign;   /* D_j = dsign[j] * drop */
+    size_t ncross;
+    double drop;
+} model_ctx;
+
+/* Walk over the samples: P_k = z^k with z = exp(-a + j w) by recurrence (exact
+ * every RESYNC samples), and the drop terms as S_k = sum_j D_j z^(k - c_j) =
+ * P_k Cs, T_k = sum_j (k - c_j) D_j z^(k - c_j) = k S_k - P_k Ct, with the
+ * constants Cs, Ct updated as each crossing c_j is passed: no extra recurrence. */
+typedef struct walk {
+    double a, w, zr, zi, pr, pi, csr, csi, ctr, cti;
+    size_t j;
+} walk;
+
+static inline void walk_init(walk *s, double a, double wv)
+{
+    const double ea = exp(-a);
+    s->a = a;
+    s->w = wv;
+    s->zr = ea * cos(wv);
+    s->zi = ea * sin(wv);
+    s->pr = 1.0;
+    s->pi = 0.0;
+    s->csr = s->csi = s->ctr = s->cti = 0.0;
+    s->j = 0;
+}
+
+/* Drop terms at sample k: Im S (model), and Re T, Im T (Jacobian). */
+static inline void walk_at(walk *s, const model_ctx *m, size_t k, double *si, double *tr,
+                           double *ti)
+{
+    const double kd = (double)k;
+    if (k % RESYNC == 0 && k) {
+        const double e = exp(-s->a * kd);
+        s->pr = e * cos(s->w * kd);
+        s->pi = e * sin(s->w * kd);
+    }
+    if (!m->ncross) {
+        *si = *tr = *ti = 0.0;
+        return;
+    }
+    while (s->j < m->ncross && m->cross[s->j] <= kd) {
+        const double c = m->cross[s->j], e = exp(s->a * c) * m->dsign[s->j] * m->drop;
+        const double dr = e * cos(s->w * c), di = -e * sin(s->w * c);  /* D z^-c */
+        s->csr += dr;
+        s->csi += di;
+        s->ctr += c * dr;
+        s->cti += c * di;
+        s->j++;
+    }
+    const double Sr = s->pr * s->csr - s->pi * s->csi, Si = s->pr * s->csi + s->pi * s->csr;
+    const double Pr = s->pr * s->ctr - s->pi * s->cti, Pi = s->pr * s->cti + s->pi * s->ctr;
+    *si = Si;
+    *tr = kd * Sr - Pr;
+    *ti = kd * Si - Pi;
+}
+
+static inline void walk_next(walk *s)
+{
+    const double t0 = s->pr * s->zr - s->pi * s->zi;
+    s->pi = s->pr * s->zi + s->pi * s->zr;
+    s->pr = t0;
+}
+
+/* Residuals (model - data) into f (may be NULL) and, when J is not NULL, the
+ * Jacobian; rows beyond the real samples are padding (zero). */
+static void eval_model(const double *p, const model_ctx *m, gsl_vector *f, gsl_matrix *J)
+{
+    const size_t ntot = f ? f->size : J->size1;
+    const double c1 = p[2], c2 = p[3], c0 = m->p == 5 ? p[4] : 0.0;
+    walk s;
+    walk_init(&s, p[0], p[1]);
+    for (size_t k = 0; k < m->n; k++) {
+        double si, tr, ti;
+        walk_at(&s, m, k, &si, &tr, &ti);
+        const double kd = (double)k, base = c1 * s.pr + c2 * s.pi;
+        if (f)
+            gsl_vector_set(f, k, base + c0 + si - (double)m->x[k]);
+        if (J) {
+            double *row = gsl_matrix_ptr(J, k, 0);
+            row[0] = -kd * base - ti;
+            row[1] = kd * (c2 * s.pr - c1 * s.pi) + tr;
+            row[2] = s.pr;
+            row[3] = s.pi;
+            if (m->p == 5)
+                row[4] = 1.0;
+        }
+        walk_next(&s);
+    }
+    for (size_t k = m->n; k < ntot; k++) {
+        if (f)
+            gsl_vector_set(f, k, 0.0);
+        if (J)
+            for (size_t c = 0; c < m->p; c++)
+                gsl_matrix_set(J, k, c, 0.0);
+    }
+}
+
+static int cb_f(const gsl_vector *x, void *ctx, gsl_vector *f)
+{
+    eval_model(x->data, ctx, f, NULL);
+    return GSL_SUCCESS;
+}
+
+static int cb_df(const gsl_vector *x, void *ctx, gsl_matrix *J)
+{
+    eval_model(x->data, ctx, NULL, J);
+    return GSL_SUCCESS;
+}
+
+/* ---- start values: matrix pencil (Hua and Sarkar 1990) on block averages ---------- */
+
+/* Block averaging keeps the poles of a sum of damped exponentials (z -> z^s), so
+ * the pencil of the averaged sequence gives exp((-alpha + j wd) s dt). */
+static int pencil_start(tf_dsfit_workspace *w, const float *x, size_t n, int order,
+                        double *a_out, double *w_out)
+{
+    double peak = 0;
+    for (size_t k = 0; k < n; k++)
+        if (fabs(x[k]) > peak)
+            peak = fabs(x[k]);
+    if (!(peak > 0))
+        return -1;
+    /* crossings with hysteresis (20 % of peak) give samples per period */
+    size_t cross = 0;
+    int state = 0;
+    for (size_t k = 0; k < n; k++) {
+        int s = x[k] > 0.2 * peak ? 1 : (x[k] < -0.2 * peak ? -1 : 0);
+        if (s && s != state) {
+            if (state)
+                cross++;
+            state = s;
+        }
+    }
+    double spp = 2.0 * (double)n / (double)(cross + 1);
+    size_t s = (size_t)(spp / 20.0);
+    if (s > n / 24)
+        s = n / 24;
+    if (s < 1)
+        s = 1;
+    size_t nd = n / s;
+    if (nd > PENCIL_MAX)
+        nd = PENCIL_MAX;
+    if (nd < 8)
+        return -1;
+    for (size_t m = 0; m < nd; m++) {
+        double acc = 0;
+        for (size_t q = 0; q < s; q++)
+            acc += x[m * s + q];
+        w->dec[m] = acc / (double)s;
+    }
+    const size_t L = (nd - 1) / 2, rows = nd - L, cols = L + 1;
+    gsl_matrix_view Y = gsl_matrix_view_array(w->hank, rows, cols);
+    for (size_t r = 0; r < rows; r++)
+        for (size_t c = 0; c < cols; c++)
+            gsl_matrix_set(&Y.matrix, r, c, w->dec[r + c]);
+    gsl_matrix_view V = gsl_matrix_view_array(w->vmat, cols, cols);
+    gsl_vector_view S = gsl_vector_view_array(w->sv, cols);
+    gsl_vector_view work = gsl_vector_view_array(w->svwork, cols);
+    if (gsl_linalg_SV_decomp(&Y.matrix, &V.matrix, &S.vector, &work.vector) != GSL_SUCCESS)
+        return -1;
+    /* Z = pinv(V1) V2 with V1, V2 the first M right singular vectors without their
+     * last / first row; via the M x M normal equations */
+    const size_t M = (size_t)order;
+    double A[9] = {0}, B[9] = {0};
+    for (size_t r = 0; r < L; r++)
+        for (size_t i = 0; i < M; i++)
+            for (size_t jj = 0; jj < M; jj++) {
+                A[i * M + jj] += gsl_matrix_get(&V.matrix, r, i) * gsl_matrix_get(&V.matrix, r, jj);
+                B[i * M + jj] += gsl_matrix_get(&V.matrix, r, i) * gsl_matrix_get(&V.matrix, r + 1, jj);
+            }
+    gsl_matrix_view Am = gsl_matrix_view_array(A, M, M);
+    gsl_matrix_view Bm = gsl_matrix_view_array(B, M, M);
+    if (gsl_linalg_cholesky_decomp1(&Am.matrix) != GSL_SUCCESS)
+        return -1;
+    for (size_t c = 0; c < M; c++) {
+        gsl_vector_view col = gsl_matrix_column(&Bm.matrix, c);
+        gsl_linalg_cholesky_svx(&Am.matrix, &col.vector);
+    }
+    double ev_re[3], ev_im[3];
+    gsl_vector_complex_view eval;
+    double evbuf[6];
+    eval = gsl_vector_complex_view_array(evbuf, M);
+    gsl_eigen_nonsymm_workspace *ew = w->eig;
+    if (M != 3) {
+        /* 2x2: closed form */
+        const double tr = B[0] + B[3], det = B[0] * B[3] - B[1] * B[2];
+        const double disc = tr * tr / 4.0 - det;
+        if (disc >= 0)
+            return -1;
+        ev_re[0] = tr / 2.0;
+        ev_im[0] = sqrt(-disc);
+    } else {
+        if (gsl_eigen_nonsymm(&Bm.matrix, &eval.vector, ew) != GSL_SUCCESS)
+            return -1;
+        int best = -1;
+        for (size_t i = 0; i < M; i++) {
+            ev_re[i] = evbuf[2 * i];
+            ev_im[i] = fabs(evbuf[2 * i + 1]);
+            if (ev_im[i] > 0 && (best < 0 || ev_im[i] > ev_im[best]))
+                best = (int)i;
+        }
+        if (best < 0)
+            return -1;
+        ev_re[0] = ev_re[best];
+        ev_im[0] = ev_im[best];
+    }
+    const double mag = hypot(ev_re[0], ev_im[0]), ang = atan2(ev_im[0], ev_re[0]);
+    if (!(mag > 0) || !(ang > 0))
+        return -1;
+    *a_out = -log(mag) / (double)s;
+    *w_out = ang / (double)s;
+    return 0;
+}
+
+/* Linear least squares of the amplitudes for fixed (a, w) (per-sample units). */
+static int linear_amplitudes(const float *x, size_t n, size_t p, double a, double wv, double *c)
+{
+    double G[25] = {0}, b[5] = {0};
+    const double ea = exp(-a), zr = ea * cos(wv), zi = ea * sin(wv);
+    double pr = 1, pi = 0;
+    for (size_t k = 0; k < n; k++) {
+        if (k % RESYNC == 0 && k) {
+            const double e = exp(-a * (double)k);
+            pr = e * cos(wv * (double)k);
+            pi = e * sin(wv * (double)k);
+        }
+        const double r[3] = {pr, pi, 1.0};
+        for (size_t i = 0; i < p - 2; i++) {
+            b[i] += r[i] * x[k];
+            for (size_t jj = 0; jj < p - 2; jj++)
+                G[i * (p - 2) + jj] += r[i] * r[jj];
+        }
+        const double t0 = pr * zr - pi * zi;
+        pi = pr * zi + pi * zr;
+        pr = t0;
+    }
+    gsl_matrix_view Gm = gsl_matrix_view_array(G, p - 2, p - 2);
+    gsl_vector_view bv = gsl_vector_view_array(b, p - 2);
+    if (gsl_linalg_cholesky_decomp1(&Gm.matrix) != GSL_SUCCESS ||
+        gsl_linalg_cholesky_svx(&Gm.matrix, &bv.vector) != GSL_SUCCESS)
+        return -1;
+    for (size_t i = 0; i < p - 2; i++)
+        c[i + 2] = b[i];
+    return 0;
+}
+
+/* Zero crossings strictly inside the window (sign changes of the model with the
+ * current drop terms), in samples, into buffer b. (size_t)-1 when out of memory. */
+static size_t model_crossings(tf_dsfit_workspace *w, int b, const double *p, const model_ctx *m)
+{
+    const double c1 = p[2], c2 = p[3], c0 = m->p == 5 ? p[4] : 0.0;
+    double prev = 0;
+    size_t nc = 0;
+    walk s;
+    walk_init(&s, p[0], p[1]);
+    for (size_t k = 0; k < m->n; k++) {
+        double si, tr, ti;
+        walk_at(&s, m, k, &si, &tr, &ti);
+        const double kd = (double)k, cur = c1 * s.pr + c2 * s.pi + c0 + si;
+        if (k > 0 && ((prev > 0 && cur <= 0) || (prev < 0 && cur >= 0))) {
+            if (nc == w->ccap[b]) {
+                size_t nc2 = w->ccap[b] ? 2 * w->ccap[b] : 64;
+                double *q1 = realloc(w->cross[b], nc2 * sizeof *q1);
+                if (!q1)
+                    return (size_t)-1;
+                w->cross[b] = q1;
+                double *q2 = realloc(w->csign[b], nc2 * sizeof *q2);
+                if (!q2)
+                    return (size_t)-1;
+                w->csign[b] = q2;
+                w->ccap[b] = nc2;
+            }
+            w->cross[b][nc] = kd - 1.0 + prev / (prev - cur);
+            w->csign[b][nc] = prev > 0 ? 1.0 : -1.0; /* the step opposes the new lobe */
+            nc++;
+        }
+        prev = cur;
+        walk_next(&s);
+    }
+    return nc;
+}
+
+static int run_lm(gsl_multifit_nlinear_workspace *ws, model_ctx *m, double *par, int maxit,
+                  int *iters)
+{
+    gsl_multifit_nlinear_fdf fdf;
+    fdf.f = cb_f;
+    fdf.df = cb_df;
+    fdf.fvv = NULL;
+    fdf.n = ws->f->size;
+    fdf.p = m->p;
+    fdf.params = m;
+    gsl_vector_view x0 = gsl_vector_view_array(par, m->p);
+    if (gsl_multifit_nlinear_init(&x0.vector, &fdf, ws) != GSL_SUCCESS)
+        return -1;
+    int info = 0;
+    int st = gsl_multifit_nlinear_driver((size_t)maxit, 1e-11, 1e-14, 1e-14, NULL, NULL, &info, ws);
+    *iters += (int)gsl_multifit_nlinear_niter(ws);
+    if (st != GSL_SUCCESS && st != GSL_EMAXITER)
+        return -1;
+    gsl_vector *xr = gsl_multifit_nlinear_position(ws);
+    for (size_t k = 0; k < m->p; k++)
+        par[k] = gsl_vector_get(xr, k);
+    return 0;
+}
+
+/* One pass over the samples: residual sum of squares and, when H is not NULL, the
+ * normal equations H = J^T J, g = J^T r (p x p, row-major), without storing J. */
+static double accumulate(const double *p, const model_ctx *m, double *H, double *g)
+{
+    const double c1 = p[2], c2 = p[3], c0 = m->p == 5 ? p[4] : 0.0;
+    double rss = 0;
+    double h[15] = {0}, gg[5] = {0};
+    const int full = m->p == 5;
+    walk s;
+    walk_init(&s, p[0], p[1]);
+    for (size_t k = 0; k < m->n; k++) {
+        double si, tr, ti;
+        walk_at(&s, m, k, &si, &tr, &ti);
+        const double kd = (double)k, pr = s.pr, pi = s.pi;
+        const double base = c1 * pr + c2 * pi;
+        const double r = base + c0 + si - (double)m->x[k];
+        rss += r * r;
+        if (H) {
+            const double j0 = -kd * base - ti, j1 = kd * (c2 * pr - c1 * pi) + tr;
+            const double j2 = pr, j3 = pi;
+            h[0] += j0 * j0; h[1] += j0 * j1; h[2] += j0 * j2; h[3] += j0 * j3;
+            h[4] += j1 * j1; h[5] += j1 * j2; h[6] += j1 * j3;
+            h[7] += j2 * j2; h[8] += j2 * j3; h[9] += j3 * j3;
+            gg[0] += j0 * r; gg[1] += j1 * r; gg[2] += j2 * r; gg[3] += j3 * r;
+            if (full) {
+                h[10] += j0; h[11] += j1; h[12] += j2; h[13] += j3; h[14] += 1.0;
+                gg[4] += r;
+            }
+        }
+        walk_next(&s);
+    }
+    if (H) {
+        const size_t P = m->p;
+        const int idx[4][4] = {{0, 1, 2, 3}, {1, 4, 5, 6}, {2, 5, 7, 8}, {3, 6, 8, 9}};
+        for (size_t r = 0; r < 4; r++)
+            for (size_t c = 0; c < 4; c++)
+                H[r * P + c] = h[idx[r][c]];
+        if (full) {
+            for (size_t c = 0; c < 5; c++)
+                H[4 * P + c] = H[c * P + 4] = h[10 + c];
+        }
+        for (size_t c = 0; c < P; c++)
+            g[c] = gg[c];
+    }
+    return rss;
+}
+
+/* Solve (H + lambda diag(H)) d = -g by Cholesky on the Jacobi-scaled system. */
+static int lm_step(const double *H, const double *g, size_t P, double lambda, double *d)
+{
+    double A[25], b[5], sc[5];
+    for (size_t i = 0; i < P; i++) {
+        if (!(H[i * P + i] > 0))
+            return -1;
+        sc[i] = 1.0 / sqrt(H[i * P + i]);
+    }
+    for (size_t i = 0; i < P; i++) {
+        for (size_t c = 0; c < P; c++)
+            A[i * P + c] = H[i * P + c] * sc[i] * sc[c];
+        A[i * P + i] = 1.0 + lambda;
+        b[i] = -g[i] * sc[i];
+    }
+    gsl_matrix_view Am = gsl_matrix_view_array(A, P, P);
+    gsl_vector_view bv = gsl_vector_view_array(b, P);
+    if (gsl_linalg_cholesky_decomp1(&Am.matrix) != GSL_SUCCESS ||
+        gsl_linalg_cholesky_svx(&Am.matrix, &bv.vector) != GSL_SUCCESS)
+        return -1;
+    for (size_t i = 0; i < P; i++)
+        d[i] = b[i] * sc[i];
+    return 0;
+}
+
+/* Levenberg-Marquardt (Levenberg 1944, Marquardt 1963) on the streamed normal
+ * equations: one pass over the data per iteration. */
+/* Standard uncertainties of the first two parameters (per-sample units) from H
+ * and the residual variance; 0 when H is singular. */
+static void step_scale(const double *H, size_t P, double rss, size_t n, double *u)
+{
+    double A[25];
+    memcpy(A, H, P * P * sizeof *A);
+    gsl_matrix_view Am = gsl_matrix_view_array(A, P, P);
+    u[0] = u[1] = 0.0;
+    if (n <= P || gsl_linalg_cholesky_decomp1(&Am.matrix) != GSL_SUCCESS ||
+        gsl_linalg_cholesky_invert(&Am.matrix) != GSL_SUCCESS)
+        return;
+    const double s2 = rss / (double)(n - P);
+    u[0] = sqrt(s2 * A[0]);
+    u[1] = sqrt(s2 * A[P + 1]);
+}
+
+/* Levenberg-Marquardt (Levenberg 1944, Marquardt 1963) on the streamed normal
+ * equations: one pass over the data per trial point. Converged when the step of
+ * alpha and wd is below 1e-9 relative or below 1 % of their standard
+ * uncertainty; such a last step is applied without another pass (H and the
+ * residual change by a negligible second-order amount). */
+static int run_fast(model_ctx *m, double *par, int maxit, int *iters, double *H_out,
+                    double *rss_out)
+{
+    const size_t P = m->p;
+    double H[25], g[5], Hn[25], gn[5], d[5], trial[5], u[2];
+    double rss = accumulate(par, m, H, g), lambda = 1e-4;
+    if (!isfinite(rss))
+        return -1;
+    for (int it = 0; it < maxit; it++) {
+        if (lm_step(H, g, P, lambda, d) != 0)
+            return -1;
+        step_scale(H, P, rss, m->n, u);
+        const int small = (fabs(d[0]) <= 1e-9 * (fabs(par[0]) + fabs(par[1])) ||
+                           fabs(d[0]) <= 0.01 * u[0]) &&
+                          (fabs(d[1]) <= 1e-9 * fabs(par[1]) || fabs(d[1]) <= 0.01 * u[1]);
+        if (small && lambda <= 1e-3) {
+            for (size_t i = 0; i < P; i++)
+                par[i] += d[i];
+            break;
+        }
+        for (size_t i = 0; i < P; i++)
+            trial[i] = par[i] + d[i];
+        const double rn = accumulate(trial, m, Hn, gn);
+        ++*iters;
+        if (isfinite(rn) && rn <= rss) {
+            memcpy(par, trial, P * sizeof *par);
+            memcpy(H, Hn, sizeof H);
+            memcpy(g, gn, sizeof g);
+            rss = rn;
+            lambda = fmax(lambda * 0.1, 1e-12);
+        } else {
+            if (small)
+                break;
+            lambda *= 10.0;
+            if (lambda > 1e12)
+                break;
+        }
+    }
+    memcpy(H_out, H, P * P * sizeof *H);
+    *rss_out = rss;
+    return 0;
+}
+
+static tf_status fit_core(int use_gsl, tf_dsfit_workspace *w, const float *x, size_t n,
+                          double dt_s, const tf_dsfit_options *o, tf_dsfit *out, tf_error *err)
+{
+    memset(out, 0, sizeof *out);
+    out->offset_a = out->u_offset_a = NAN;
+    if (!w || !x || n < 8 || !(dt_s > 0))
+        return tf_error_set(err, TF_ERR_USAGE,
+                            "damped-sine fit: expected >= 8 samples and dt > 0, found %zu", n);
+    const int offset = o && o->offset_term;
+    const double drop = o && o->drop_step_a > 0 ? o->drop_step_a : 0.0;
+    const int maxit = o && o->max_iter > 0 ? o->max_iter : 50;
+    const size_t p = offset ? 5 : 4;
+    double par[5] = {0}, H[25], rss = NAN;
+    if (pencil_start(w, x, n, offset ? 3 : 2, &par[0], &par[1]) != 0) {
+        /* no oscillation seen by the pencil (a single lobe, say): half a period */
+        par[0] = 0.0;
+        par[1] = M_PI / (double)n;
+    }
+    out->init_alpha_per_s = par[0] / dt_s;
+    out->init_wd_rad_s = par[1] / dt_s;
+    if (linear_amplitudes(x, n, p, par[0], par[1], par) != 0)
+        return tf_error_set(err, TF_ERR_NUMERIC, "damped-sine fit: singular amplitude system");
+    gsl_multifit_nlinear_workspace *ws = NULL;
+    if (use_gsl && !(ws = get_workspace(w, n, p)))
+        return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
+    model_ctx m = {x, n, p, NULL, NULL, 0, 0.0};
+    int iters = 0;
+    if ((use_gsl ? run_lm(ws, &m, par, maxit, &iters) : run_fast(&m, par, maxit, &iters, H, &rss)) != 0)
+        return tf_error_set(err, TF_ERR_NUMERIC, "damped-sine fit did not converge");
+    if (drop > 0) {
+        /* drop steps at the model's own crossings; crossings move slightly when the
+         * steps are added, so repeat until they settle */
+        int cur = 0;
+        m.drop = drop;
+        for (int round = 0; round < 4; round++) {
+            const int nb = 1 - cur;
+            size_t nc = model_crossings(w, nb, par, &m);
+            if (nc == (size_t)-1)
+                return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
+            double shift = INFINITY;
+            if (round > 0 && nc == m.ncross) {
+                shift = 0;
+                for (size_t k = 0; k < nc; k++)
+                    shift = fmax(shift, fabs(w->cross[nb][k] - m.cross[k]));
+            }
+            cur = nb;
+            m.cross = w->cross[cur];
+            m.dsign = w->csign[cur];
+            m.ncross = nc;
+            if (shift < 1e-3)
+                break;
+            if ((use_gsl ? run_lm(ws, &m, par, maxit, &iters)
+                         : run_fast(&m, par, maxit, &iters, H, &rss)) != 0)
+                return tf_error_set(err, TF_ERR_NUMERIC, "drop-corrected fit did not converge");
+        }
+        out->ncross = m.ncross;
+    }
+    if (!(par[1] > 0) || !(par[1] < M_PI) || !isfinite(par[0]))
+        return tf_error_set(err, TF_ERR_NUMERIC,
+                            "damped-sine fit: no oscillation below the Nyquist frequency");
+    /* covariance (J^T J)^-1 scaled by the residual variance */
+    if (use_gsl || !isfinite(rss)) {
+        double g[5];
+        rss = accumulate(par, &m, H, g);
+    }
+    gsl_matrix *cov = w->covar[p == 5];
+    for (size_t r = 0; r < p; r++)
+        for (size_t c = 0; c < p; c++)
+            gsl_matrix_set(cov, r, c, H[r * p + c]);
+    if (gsl_linalg_cholesky_decomp1(cov) != GSL_SUCCESS || gsl_linalg_cholesky_invert(cov) != GSL_SUCCESS)
+        return tf_error_set(err, TF_ERR_NUMERIC, "damped-sine fit: singular normal equations");
+    const double s2 = n > p ? rss / (double)(n - p) : NAN;
+    out->alpha_per_s = par[0] / dt_s;
+    out->wd_rad_s = par[1] / dt_s;
+    out->u_alpha_per_s = sqrt(s2 * gsl_matrix_get(cov, 0, 0)) / dt_s;
+    out->u_wd_rad_s = sqrt(s2 * gsl_matrix_get(cov, 1, 1)) / dt_s;
+    out->cov_alpha_wd = s2 * gsl_matrix_get(cov, 0, 1) / (dt_s * dt_s);
+    out->amplitude_a = hypot(par[2], par[3]);
+    out->phase_rad = atan2(par[2], par[3]);
+    if (offset) {
+        out->offset_a = par[4];
+        out->u_offset_a = sqrt(s2 * gsl_matrix_get(cov, 4, 4));
+    }
+    out->residual_rms = sqrt(rss / (double)n);
+    out->iterations = iters;
+    return TF_OK;
+}
+
+tf_status tf_dsfit_run(tf_dsfit_workspace *w, const float *x, size_t n, double dt_s,
+                       const tf_dsfit_options *o, tf_dsfit *out, tf_error *err)
+{
+    return fit_core(0, w, x, n, dt_s, o, out, err);
+}
+
+tf_status tf_dsfit_run_gsl(tf_dsfit_workspace *w, const float *x, size_t n, double dt_s,
+                           const tf_dsfit_options *o, tf_dsfit *out, tf_error *err)
+{
+    return fit_core(1, w, x, n, dt_s, o, out, err);
+}

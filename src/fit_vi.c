@@ -1,0 +1,325 @@
+/* v-i identification (integrated series RLC equation, linear least squares per burst)
+ * with the probe skew that minimises the residual, and the power method R = P / I_rms^2. */
+#include "fit_internal.h"
+
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include <gsl/gsl_linalg.h>
+
+#define NPAR 6          /* R, L, vc0, 1/C and two integration constants */
+#define SKEW_WINDOWS 128 /* windows used for the skew search */
+#define SKEW_GROUPS 8    /* groups for the skew's uncertainty */
+
+double tf_fit_interp(const float *x, size_t n, double pos)
+{
+    if (!(pos > 0))
+        return x[0];
+    if (pos >= (double)(n - 1))
+        return x[n - 1];
+    size_t k = (size_t)pos;
+    double f = pos - (double)k;
+    return x[k] + f * ((double)x[k + 1] - (double)x[k]);
+}
+
+/* One window: theta (R, L, vc0, 1/C, k1, k0) of the circuit equation integrated twice,
+ *   II v = R II i + L I i + vc0 t^2 / 2 + (1/C) III i + k1 t + k0
+ * (I: running integral from the window start, trapezoidal; v delayed back by tau
+ * seconds), the residual sum of squares and, when cov is not NULL, the
+ * parameters' covariance (s^2 G^-1). Integrating twice leaves no raw current
+ * sample among the regressors: the current noise is averaged before it enters,
+ * which avoids the errors-in-variables shrinkage a raw i regressor suffers
+ * (its part not explained by III i is small near resonance). Returns 0, or -1
+ * if singular. */
+/* Running trapezoidal integrals: y1 = I v, y2 = II v, q1 = I i, q2 = II i, q3 = III i. */
+typedef struct integ {
+    double vp, ip, y1, y2, q1, q2, q3;
+} integ;
+
+static void integ_step(integ *s, double v, double i, double dt, int first)
+{
+    if (!first) {
+        const double y1 = s->y1 + 0.5 * dt * (s->vp + v);
+        s->y2 += 0.5 * dt * (s->y1 + y1);
+        s->y1 = y1;
+        const double q1 = s->q1 + 0.5 * dt * (s->ip + i);
+        const double q2 = s->q2 + 0.5 * dt * (s->q1 + q1);
+        s->q3 += 0.5 * dt * (s->q2 + q2);
+        s->q2 = q2;
+        s->q1 = q1;
+    }
+    s->vp = v;
+    s->ip = i;
+}
+
+static int window_ls(const float *v, const float *i, size_t n, double dt, const tf_window *w,
+                     double tau, double *theta, double *rss, double *cov)
+{
+    double G[NPAR * NPAR] = {0}, b[NPAR] = {0}, sc[NPAR];
+    const double sh = tau / dt;
+    integ s0 = {0};
+    for (size_t k = w->i0; k < w->i1; k++) {
+        integ_step(&s0, tf_fit_interp(v, n, (double)k + sh), i[k], dt, k == w->i0);
+        const double t = (double)(k - w->i0) * dt;
+        const double phi[NPAR] = {s0.q2, s0.q1, 0.5 * t * t, s0.q3, t, 1.0};
+        const double Y = s0.y2;
+        for (int r = 0; r < NPAR; r++) {
+            b[r] += phi[r] * Y;
+            for (int c = r; c < NPAR; c++)
+                G[r * NPAR + c] += phi[r] * phi[c];
+        }
+    }
+    for (int r = 0; r < NPAR; r++) {
+        for (int c = 0; c < r; c++)
+            G[r * NPAR + c] = G[c * NPAR + r];
+        if (!(G[r * NPAR + r] > 0))
+            return -1;
+        sc[r] = 1.0 / sqrt(G[r * NPAR + r]);
+    }
+    for (int r = 0; r < NPAR; r++) {
+        b[r] *= sc[r];
+        for (int c = 0; c < NPAR; c++)
+            G[r * NPAR + c] *= sc[r] * sc[c];
+    }
+    gsl_matrix_view Gm = gsl_matrix_view_array(G, NPAR, NPAR);
+    gsl_vector_view bv = gsl_vector_view_array(b, NPAR);
+    if (gsl_linalg_cholesky_decomp1(&Gm.matrix) != GSL_SUCCESS ||
+        gsl_linalg_cholesky_svx(&Gm.matrix, &bv.vector) != GSL_SUCCESS)
+        return -1;
+    for (int r = 0; r < NPAR; r++)
+        theta[r] = b[r] * sc[r];
+    /* second pass for the residual: no cancellation */
+    double s = 0;
+    integ s1 = {0};
+    for (size_t k = w->i0; k < w->i1; k++) {
+        integ_step(&s1, tf_fit_interp(v, n, (double)k + sh), i[k], dt, k == w->i0);
+        const double t = (double)(k - w->i0) * dt;
+        const double e = s1.y2 - (theta[0] * s1.q2 + theta[1] * s1.q1 + theta[2] * 0.5 * t * t +
+                                  theta[3] * s1.q3 + theta[4] * t + theta[5]);
+        s += e * e;
+    }
+    *rss = s;
+    if (cov) {
+        const size_t m = w->i1 - w->i0;
+        const double s2 = m > NPAR ? s / (double)(m - NPAR) : NAN;
+        if (gsl_linalg_cholesky_invert(&Gm.matrix) != GSL_SUCCESS)
+            return -1;
+        for (int r = 0; r < NPAR; r++)
+            for (int c = 0; c < NPAR; c++)
+                cov[r * NPAR + c] = s2 * gsl_matrix_get(&Gm.matrix, r, c) * sc[r] * sc[c];
+    }
+    return 0;
+}
+
+/* Minimum of a sampled curve: index of the smallest value and the parabolic
+ * vertex through it and its neighbours (in units of the grid step). */
+static double parabolic_min(const double *y, size_t ny, size_t *imin)
+{
+    size_t m = 0;
+    for (size_t k = 1; k < ny; k++)
+        if (y[k] < y[m])
+            m = k;
+    *imin = m;
+    if (m == 0 || m + 1 >= ny)
+        return (double)m;
+    const double den = y[m - 1] - 2 * y[m] + y[m + 1];
+    if (!(den > 0))
+        return (double)m;
+    return (double)m + 0.5 * (y[m - 1] - y[m + 1]) / den;
+}
+
+/* Residual curves (total and per group) over the grid tau0 + k step, k < ng. */
+static int rss_curves(const float *v, const float *i, size_t n, double dt, const tf_window *win,
+                      const size_t *sub, size_t nsub, double tau0, double step, size_t ng,
+                      double *tot, double *grp, size_t ngrp)
+{
+    for (size_t g = 0; g < ng; g++) {
+        tot[g] = 0;
+        for (size_t q = 0; q < ngrp; q++)
+            grp[q * ng + g] = 0;
+        for (size_t s = 0; s < nsub; s++) {
+            double th[NPAR], rss;
+            if (window_ls(v, i, n, dt, &win[sub[s]], tau0 + (double)g * step, th, &rss, NULL) != 0)
+                return -1;
+            tot[g] += rss;
+            grp[(s % ngrp) * ng + g] += rss;
+        }
+    }
+    return 0;
+}
+
+static int estimate_skew(const float *v, const float *i, size_t n, double dt,
+                         const tf_window *win, size_t nwin, double search_s, double *skew,
+                         double *u_skew)
+{
+    size_t sub[SKEW_WINDOWS], nsub = nwin < SKEW_WINDOWS ? nwin : SKEW_WINDOWS;
+    for (size_t s = 0; s < nsub; s++)
+        sub[s] = s * nwin / nsub;
+    const size_t ngrp = nsub >= 2 * SKEW_GROUPS ? SKEW_GROUPS : (nsub >= 4 ? nsub / 2 : 1);
+    int half = search_s > 0 ? (int)ceil(search_s / dt) : 20;
+    if (half < 2)
+        half = 2;
+    if (half > 200)
+        half = 200;
+    const size_t ng = (size_t)(2 * half + 1), nf = 21;
+    double *tot = malloc((ng + nf) * (ngrp + 1) * sizeof *tot);
+    if (!tot)
+        return -1;
+    double *grp = tot + ng, *ftot = grp + ng * ngrp, *fgrp = ftot + nf;
+    if (rss_curves(v, i, n, dt, win, sub, nsub, -half * dt, dt, ng, tot, grp, ngrp) != 0) {
+        free(tot);
+        return -1;
+    }
+    size_t im;
+    parabolic_min(tot, ng, &im);
+    /* fine grid of 0.1 sample around the coarse minimum */
+    const double f0 = (double)((long)im - half) * dt - dt, fs = dt / 10.0;
+    if (rss_curves(v, i, n, dt, win, sub, nsub, f0, fs, nf, ftot, fgrp, ngrp) != 0) {
+        free(tot);
+        return -1;
+    }
+    *skew = f0 + parabolic_min(ftot, nf, &im) * fs;
+    if (ngrp >= 2) {
+        double m = 0, s2 = 0, est[SKEW_GROUPS];
+        for (size_t q = 0; q < ngrp; q++) {
+            est[q] = f0 + parabolic_min(fgrp + q * nf, nf, &im) * fs;
+            m += est[q];
+        }
+        m /= (double)ngrp;
+        for (size_t q = 0; q < ngrp; q++)
+            s2 += (est[q] - m) * (est[q] - m);
+        *u_skew = sqrt(s2 / (double)(ngrp - 1) / (double)ngrp);
+    } else {
+        /* one window: curvature of the residual, var = 2 s^2 / RSS'' (least squares) */
+        size_t c = im == 0 ? 1 : (im + 1 >= nf ? nf - 2 : im);
+        const double d2 = (ftot[c - 1] - 2 * ftot[c] + ftot[c + 1]) / (fs * fs);
+        const size_t m = win[sub[0]].i1 - win[sub[0]].i0;
+        const double s2 = ftot[c] / (double)(m > NPAR + 1 ? m - NPAR - 1 : 1);
+        *u_skew = d2 > 0 ? sqrt(2 * s2 / d2) : NAN;
+    }
+    free(tot);
+    return 0;
+}
+
+/* Per-window R, L, C at skew tau; medians into r/l/c, spread-based u. */
+static int identify_at(const float *v, const float *i, size_t n, double dt, const tf_window *win,
+                       size_t nwin, double tau, double *pr, double *pl, double *pc, double *med,
+                       double *u, double *scratch)
+{
+    size_t ok = 0;
+    double cov[NPAR * NPAR];
+    for (size_t w = 0; w < nwin; w++) {
+        double th[NPAR], rss;
+        if (window_ls(v, i, n, dt, &win[w], tau, th, &rss, nwin == 1 ? cov : NULL) != 0 ||
+            !(th[3] > 0)) {
+            pr[w] = pl[w] = pc[w] = NAN;
+            continue;
+        }
+        pr[w] = th[0];
+        pl[w] = th[1];
+        pc[w] = 1.0 / th[3];
+        ok++;
+        if (nwin == 1) {
+            u[0] = sqrt(cov[0]);
+            u[1] = sqrt(cov[NPAR + 1]);
+            u[2] = pc[w] * sqrt(cov[3 * NPAR + 3]) / th[3];
+        }
+    }
+    if (!ok)
+        return -1;
+    const double *src[3] = {pr, pl, pc};
+    for (int q = 0; q < 3; q++) {
+        tf_fit_spread sp;
+        tf_fit_spread_of(src[q], nwin, 1, scratch, &sp);
+        med[q] = sp.median;
+        if (nwin > 1)
+            u[q] = sp.count > 1 ? 1.2533 * sp.spread / sqrt((double)sp.count) : NAN;
+    }
+    return 0;
+}
+
+tf_status tf_vi_identify(const float *v, const float *i, size_t n, double dt_s,
+                         const tf_window *win, size_t nwin, int skew_set, double skew_s,
+                         double search_s, tf_vi_result *out, double *per_r, double *per_l,
+                         double *per_c, tf_error *err)
+{
+    memset(out, 0, sizeof *out);
+    if (!nwin || n < 8)
+        return tf_error_set(err, TF_ERR_USAGE, "v-i identification: no windows");
+    double *buf = malloc((3 * nwin + nwin) * sizeof *buf);
+    if (!buf)
+        return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
+    double *pr = per_r ? per_r : buf, *pl = per_l ? per_l : buf + nwin,
+           *pc = per_c ? per_c : buf + 2 * nwin, *scratch = buf + 3 * nwin;
+    double tau = skew_set ? skew_s : 0.0, utau = 0.0;
+    if (!skew_set) {
+        if (estimate_skew(v, i, n, dt_s, win, nwin, search_s, &tau, &utau) != 0) {
+            free(buf);
+            return tf_error_set(err, TF_ERR_NUMERIC, "v-i identification: singular system while searching the skew");
+        }
+        out->skew_estimated = 1;
+    }
+    double med[3], u[3], medp[3], up[3], medm[3];
+    if (identify_at(v, i, n, dt_s, win, nwin, tau, pr, pl, pc, med, u, scratch) != 0) {
+        free(buf);
+        return tf_error_set(err, TF_ERR_NUMERIC, "v-i identification: no burst gave a positive capacitance");
+    }
+    if (utau > 0 && isfinite(utau)) {
+        /* the skew's share of the uncertainty, by evaluating at tau +- u */
+        double *tr = malloc(3 * nwin * sizeof *tr);
+        if (tr && identify_at(v, i, n, dt_s, win, nwin, tau + utau, tr, tr + nwin, tr + 2 * nwin,
+                              medp, up, scratch) == 0 &&
+            identify_at(v, i, n, dt_s, win, nwin, tau - utau, tr, tr + nwin, tr + 2 * nwin, medm,
+                        up, scratch) == 0)
+            for (int q = 0; q < 3; q++)
+                u[q] = hypot(isfinite(u[q]) ? u[q] : 0, 0.5 * fabs(medp[q] - medm[q]));
+        free(tr);
+    }
+    out->valid = 1;
+    out->r_ohm = med[0];
+    out->u_r_ohm = u[0];
+    out->l_h = med[1];
+    out->u_l_h = u[1];
+    out->c_f = med[2];
+    out->u_c_f = u[2];
+    out->skew_s = tau;
+    out->u_skew_s = utau;
+    out->bursts_used = nwin;
+    free(buf);
+    return TF_OK;
+}
+
+tf_status tf_power_resistance(const float *v, const float *i, size_t n, double dt_s,
+                              double skew_s, const size_t *bounds, size_t nb, double *r_ohm,
+                              double *u_ohm, tf_error *err)
+{
+    if (nb < 2 || bounds[nb - 1] > n || bounds[0] >= bounds[nb - 1])
+        return tf_error_set(err, TF_ERR_USAGE, "power method: expected whole periods");
+    const double sh = skew_s / dt_s;
+    double p = 0, i2 = 0, sr = 0, sr2 = 0;
+    size_t np = 0;
+    for (size_t q = 0; q + 1 < nb; q++) {
+        double pp = 0, ii = 0;
+        for (size_t k = bounds[q]; k < bounds[q + 1]; k++) {
+            pp += tf_fit_interp(v, n, (double)k + sh) * i[k];
+            ii += (double)i[k] * i[k];
+        }
+        p += pp;
+        i2 += ii;
+        if (ii > 0) {
+            sr += pp / ii;
+            sr2 += (pp / ii) * (pp / ii);
+            np++;
+        }
+    }
+    if (!(i2 > 0))
+        return tf_error_set(err, TF_ERR_DATA, "power method: no current");
+    *r_ohm = p / i2;
+    *u_ohm = NAN;
+    if (np >= 2) {
+        const double m = sr / (double)np, var = (sr2 - np * m * m) / (double)(np - 1);
+        *u_ohm = sqrt(var > 0 ? var : 0) / sqrt((double)np);
+    }
+    return TF_OK;
+}
