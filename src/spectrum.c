@@ -92,11 +92,11 @@ static tf_status pick_fundamental(const tf_capture *cap, const tf_segment_result
 /* Stencil of tf_sp_interp: first sample index and the four cubic weights. */
 static inline size_t stencil(double pos, size_t n, double wt[4])
 {
-    if (pos < 0.0)
-        pos = 0.0;
-    else if (pos > (double)(n - 1))
-        pos = (double)(n - 1);
-    long k = (long)pos - 1; /* pos >= 0: truncation is floor */
+    if (pos < -0.5)
+        pos = -0.5;
+    else if (pos > (double)n - 0.5)
+        pos = (double)n - 0.5;
+    long k = (long)(pos + 1.0) - 2; /* pos + 1 > 0: truncation is floor */
     if (k < 0)
         k = 0;
     else if (k > (long)n - 4)
@@ -451,9 +451,11 @@ static tf_status choose_geometry(const tf_capture *cap, double f, int H, double 
     g->S = tf_spectrum_smooth_up(need);
     g->tau = g->T / (double)g->S;
     g->step = g->tau / dt;
-    /* every channel, read at t + shift, must stay inside the record */
+    /* every channel, read at t + shift, must stay inside the record; the last
+     * point may lie up to half a sample past the last sample (a capture of
+     * exactly M periods ends one sample before the M-th period does) */
     g->t_a = cap->t0_s - lo_shift;
-    const double t_last = tf_capture_time(cap, cap->n - 1) - hi_shift;
+    const double t_last = tf_capture_time(cap, cap->n - 1) + 0.5 * dt - hi_shift;
     const double avail = t_last - g->t_a;
     const double periods = (avail + g->tau) / g->T;
     if (!(periods >= 1.0 - 1e-9))

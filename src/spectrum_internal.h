@@ -8,16 +8,16 @@
 #include <fftw3.h>
 
 /* Cubic Lagrange interpolation of x[0..n-1] (n >= 4) at fractional index pos,
- * through the four samples around it (the stencil moves inwards at the ends,
- * positions outside [0, n-1] are clamped). At an integer position it returns
- * the sample exactly. Error bound for a sinusoid of amplitude A with P samples
+ * through the four samples around it (the stencil moves inwards at the ends). At an integer position it returns
+ * the sample exactly. Up to half a sample beyond either end the cubic through
+ * the last four samples extrapolates; further out the position is clamped. Error bound for a sinusoid of amplitude A with P samples
  * per period: 36.5 A / P^4 (docs/spectrum.md). */
 static inline double tf_sp_interp(const float *x, size_t n, double pos)
 {
-    if (pos < 0.0)
-        pos = 0.0;
-    else if (pos > (double)(n - 1))
-        pos = (double)(n - 1);
+    if (pos < -0.5)
+        pos = -0.5;
+    else if (pos > (double)n - 0.5)
+        pos = (double)n - 0.5;
     long k = (long)floor(pos) - 1;
     if (k < 0)
         k = 0;
