@@ -1,0 +1,53 @@
+/* Segmenter benchmark: tf_segment_run on an N-sample half-bridge current (40 dB noise,
+ * 12-bit), best of three runs. Built and run by bench_segment.sh; not run by ctest. */
+#include <stdio.h>
+#include <stdlib.h>
+#include <time.h>
+
+#include <tankfit/tankfit.h>
+
+#include "segment_wave.h"
+
+static double now(void)
+{
+    struct timespec ts;
+    clock_gettime(CLOCK_MONOTONIC, &ts);
+    return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
+}
+
+int main(int argc, char **argv)
+{
+    size_t n = argc > 1 ? (size_t)strtod(argv[1], NULL) : 10000000;
+    segw_cfg c;
+    segw_defaults(&c);
+    c.snr_db = 40;
+    c.range = 200;
+    c.bits = 12;
+    c.duration_s = (double)n / c.fs;
+    segw_out w;
+    if (segw_make(&c, &w) != 0) {
+        fputs("cannot make the waveform\n", stderr);
+        return 1;
+    }
+    tf_roles roles = {0, -1, -1, -1, {-1, -1, -1, -1}, ""};
+    double best = 1e9;
+    size_t lobes = 0, cycles = 0;
+    for (int rep = 0; rep < 3; rep++) {
+        tf_segment_result *r = NULL;
+        tf_error err;
+        double t0 = now();
+        if (tf_segment_run(w.cap, &roles, NULL, &r, &err) != TF_OK) {
+            fprintf(stderr, "segment: %s\n", err.msg);
+            return 1;
+        }
+        double t = now() - t0;
+        best = t < best ? t : best;
+        lobes = r->nlobes;
+        cycles = r->ncycles;
+        tf_segment_free(r);
+    }
+    printf("%zu samples, %zu lobes, %zu cycles: best %.3f s, %.1f million samples/s\n",
+           w.cap->n, lobes, cycles, best, (double)w.cap->n / best / 1e6);
+    segw_free(&w);
+    return 0;
+}
