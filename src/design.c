@@ -290,6 +290,9 @@ static int parse_qty(pstate *st, const char *what, tf_dim dim, tf_range range,
         if (strchr(q.suffix, ','))
             return fail(st, col, "%s: expected '.' as the decimal mark, found '%s'", what,
                         excerpt(ex, sizeof ex, text));
+        if (strchr(q.suffix, '#'))
+            return fail(st, col, "%s: expected a unit, found '%s' (a comment after a value "
+                        "starts with ' ;', not '#')", what, excerpt(ex, sizeof ex, text));
         return fail(st, col, "%s: expected an SI prefix (such as n, u, µ, m, k, M) and a unit after "
                     "the number, found '%s' in '%s'", what, excerpt(ex2, sizeof ex2, q.suffix),
                     excerpt(ex, sizeof ex, text));
@@ -506,7 +509,7 @@ static int add_point(pstate *st, const char *text, int col0)
     if (!parse_qty(st, "point time", TF_DIM_S, TF_RANGE_ANY, item[0], col[0], &t))
         return 0;
     if (strcmp(item[1], "-") != 0 &&
-        !parse_qty(st, "point resistance", TF_DIM_OHM, TF_RANGE_POS, item[1], col[1], &rr))
+        !parse_qty(st, "point resistance", TF_DIM_OHM, TF_RANGE_NONNEG, item[1], col[1], &rr))
         return 0;
     if (strcmp(item[2], "-") != 0 &&
         !parse_qty(st, "point inductance", TF_DIM_H, TF_RANGE_POS, item[2], col[2], &ll))

@@ -98,6 +98,25 @@ static tf_status check_limits(const tf_design *d, tf_error *err)
                                 "given", d->path[0] ? d->path : "design", needs[i].section,
                                 needs[i].key, needs[i].limit);
     }
+    /* one column cannot play two roles */
+    const char *roles[8] = {d->ch_current, d->ch_output_voltage, d->ch_capacitor_voltage,
+                            d->ch_switch_voltage, d->ch_gate[0], d->ch_gate[1], d->ch_gate[2],
+                            d->ch_gate[3]};
+    static const char *const role_keys[8] = {"current", "output_voltage", "capacitor_voltage",
+                                             "switch_voltage", "gate1", "gate2", "gate3", "gate4"};
+    for (int a = 0; a < 8; a++)
+        for (int b = a + 1; b < 8; b++)
+            if (roles[a][0] && strcmp(roles[a], roles[b]) == 0)
+                return tf_error_set(err, TF_ERR_DATA, "%s: [channels] %s and %s both name "
+                                    "column '%s'", d->path[0] ? d->path : "design",
+                                    role_keys[a], role_keys[b], roles[a]);
+    /* a relative tolerance of zero ohms (an ideal lossless tank) means nothing */
+    if (!isnan(d->resistance_tolerance) && d->resistance_ohm == 0)
+        return tf_error_set(err, TF_ERR_DATA, "%s: [limits] resistance_tolerance: relative to "
+                            "[tank] resistance, which is 0 ohm", d->path[0] ? d->path : "design");
+    if (!isnan(d->q_tolerance) && d->resistance_ohm == 0)
+        return tf_error_set(err, TF_ERR_DATA, "%s: [limits] q_tolerance: [tank] resistance is "
+                            "0 ohm, so the design's Q is infinite", d->path[0] ? d->path : "design");
     /* a probe factor in V/V on the current column (or A/V on a voltage) is a mix-up */
     for (size_t i = 0; i < d->nscales; i++) {
         const tf_design_scale *s = &d->scales[i];

@@ -42,7 +42,7 @@ const tf_dkey tf_dkeys[] = {
 
     QTY("tank", "capacitance", TF_DIM_F, TF_RANGE_POS, capacitance_f),
     QTY("tank", "inductance", TF_DIM_H, TF_RANGE_POS, inductance_h),
-    QTY("tank", "resistance", TF_DIM_OHM, TF_RANGE_POS, resistance_ohm),
+    QTY("tank", "resistance", TF_DIM_OHM, TF_RANGE_NONNEG, resistance_ohm),
     QTY("tank", "coil_resistance", TF_DIM_OHM, TF_RANGE_NONNEG, coil_resistance_ohm),
 
     QTY("switch", "turnoff_time", TF_DIM_S, TF_RANGE_POS, turnoff_time_s),
@@ -78,8 +78,8 @@ const tf_dkey tf_dkeys[] = {
     QTY("capture", "duration", TF_DIM_S, TF_RANGE_POS, duration_s),
     QTY("capture", "start", TF_DIM_S, TF_RANGE_ANY, start_s),
     ENUM("capture", "format", format_names),
-    INT("capture", "time_digits", time_digits, 1, 17),
-    INT("capture", "value_digits", value_digits, 1, 17),
+    INT("capture", "time_digits", time_digits, 1, 15),
+    INT("capture", "value_digits", value_digits, 1, 15),
     {"capture", "seed", TF_DK_SEED, TF_DIM_RATIO, TF_RANGE_ANY, 0, 0, 0, 0, NULL},
     INT("capture", "adc_bits", adc_bits, 0, 32),
     CHAN("i_load", TF_SYN_I_LOAD, TF_DIM_A),

@@ -196,6 +196,11 @@ static void test_design_channels_record(void **state)
     assert_string_equal(D->unit_serial, "HB-0421");
     assert_string_equal(D->operator_name, "shift B");
     assert_string_equal(D->notes, "first line\nsecond line\nthird line");
+    /* names longer than inih's 50-byte name buffer reach the parser whole: 63 bytes
+     * fit the column field, 64 do not */
+    parse_ok("[channels]\nscale.a_rather_long_column_name_from_a_scope_export_0123456789abcdefg = 2 A/V\n");
+    assert_string_equal(D->scales[0].column, "a_rather_long_column_name_from_a_scope_export_0123456789abcdefg");
+    expect_error("[channels]\nscale.a_rather_long_column_name_from_a_scope_export_0123456789abcdefgX = 2\n", "is longer than 63 bytes", NULL);
 }
 
 static void test_design_lists(void **state)
@@ -296,6 +301,8 @@ static void test_design_error_number(void **state)
     expect_error("[tank]\ncapacitance = 2,2 uF\n", "expected '.' as the decimal mark", NULL);
     expect_error("[tank]\ncapacitance = 2.2 uQ\n", "found 'uQ' in '2.2 uQ'", NULL);
     expect_error("[tank]\ncapacitance = 1e999 F\n", "number out of range", NULL);
+    expect_error("[tank]\ncapacitance = 2.2 uF # note\n", "a comment after a value starts with ' ;'",
+                 NULL);
     expect_error("[tank]\ncapacitance = 0x10\n", "expected a number", NULL);
     expect_error("[tank]\ncapacitance = inf\n", "expected a number", NULL);
     expect_error("[tank]\ncapacitance = nan\n", "expected a number", NULL);
@@ -305,9 +312,13 @@ static void test_design_error_number(void **state)
                  NULL);
     expect_error("[tank]\ncapacitance = -2 uF\n", "must be greater than zero", NULL);
     expect_error("[switch]\ndiode_drop = -1 V\n", "diode_drop must not be negative", NULL);
-    expect_error("[capture]\ntime_digits = 0\n", "time_digits expects a whole number from 1 to 17, found '0'",
+    expect_error("[capture]\ntime_digits = 0\n", "time_digits expects a whole number from 1 to 15, found '0'",
                  NULL);
-    expect_error("[capture]\ntime_digits = 9.5\n", "whole number from 1 to 17, found '9.5'", NULL);
+    expect_error("[capture]\nvalue_digits = 16\n", "whole number from 1 to 15, found '16'", NULL);
+    expect_error("[capture]\ntime_digits = 9.5\n", "whole number from 1 to 15, found '9.5'", NULL);
+    expect_error("[tank]\nresistance = -0.1 ohm\n", "resistance must not be negative", NULL);
+    parse_ok("[tank]\nresistance = 0 ohm\n"); /* an ideal lossless tank */
+    assert_true(D->resistance_ohm == 0.0);
     expect_error("[capture]\nv_out.bits = 33\n", "from 0 to 32", NULL);
     expect_error("[capture]\nadc_bits = 12 bits\n", "adc_bits expects a whole number", NULL);
     expect_error("[capture]\nseed = 18446744073709551616\n", "seed expects a whole number", NULL);
@@ -357,7 +368,9 @@ static void test_design_error_order(void **state)
                  "t.ini:4:9: schedule times must increase: '1 ms' is not after '2 ms' (line 3)", NULL);
     expect_error("[schedule]\npoint = 0 ms, 0.45 ohm\n",
                  "point expects 'time, resistance, inductance'", "found 2 entries", NULL);
-    expect_error("[schedule]\npoint = 0 ms, 0 ohm, 1 uH\n", "point resistance must be greater than zero",
+    expect_error("[schedule]\npoint = 0 ms, -1 ohm, 1 uH\n", "point resistance must not be negative",
+                 NULL);
+    expect_error("[schedule]\npoint = 0 ms, 1 ohm, 0 uH\n", "point inductance must be greater than zero",
                  NULL);
 }
 
@@ -555,6 +568,12 @@ static void test_design_validate(void **state)
     expect_invalid(0, "[tank] inductance: needed by [limits] resonance_tolerance");
     parse_ok("[limits]\nresistance_tolerance = 5 %\n");
     expect_invalid(0, "[tank] resistance: needed by [limits] resistance_tolerance");
+    parse_ok("[limits]\nresistance_tolerance = 5 %\n[tank]\nresistance = 0\n");
+    expect_invalid(0, "[limits] resistance_tolerance: relative to [tank] resistance, which is 0 ohm");
+    parse_ok("[limits]\nq_tolerance = 5 %\n[tank]\nresistance = 0\ncapacitance = 1 uF\ninductance = 1 uH\n");
+    expect_invalid(0, "[limits] q_tolerance: [tank] resistance is 0 ohm");
+    parse_ok("[channels]\ncurrent = a\ngate2 = b\ngate3 = a\n");
+    expect_invalid(0, "[channels] current and gate3 both name column 'a'");
     parse_ok("[channels]\ncurrent = i\nscale.i = 10 V/V\n");
     expect_invalid(0, "[channels] scale.i: V/V on a current column");
     parse_ok("[channels]\noutput_voltage = v\nscale.v = 10 A/V\n");
