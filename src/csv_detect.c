@@ -130,13 +130,19 @@ static int field_kind(const char *s, size_t len, char decimal)
 }
 
 typedef struct line_info {
-    size_t fields;
-    int kinds;                     /* OR of the field kinds */
+    size_t fields;                 /* all fields, a trailing empty one included */
+    int trail;                     /* the last field is empty */
+    int kinds;                     /* OR of the field kinds (a trailing empty one left out) */
 } line_info;
 
 static int is_numeric_row(const line_info *li)
 {
     return (li->kinds & F_NUMBER) && !(li->kinds & F_TEXT);
+}
+
+static int row_fits(const line_info *li, size_t ncols)
+{
+    return li->fields == ncols || (li->fields == ncols + 1 && li->trail);
 }
 
 typedef struct head {
@@ -153,11 +159,13 @@ static void classify(const head *h, size_t i, char delim, char decimal, fieldset
 {
     li->fields = 0;
     li->kinds = 0;
+    li->trail = 0;
     if (split_line(h->buf + h->start[i], h->length[i], delim, fs) != 0) {
         li->kinds = F_TEXT;
         return;
     }
-    li->fields = fs->total - (size_t)fs->trail;
+    li->fields = fs->total;
+    li->trail = fs->trail;
     for (size_t k = 0; k < fs->n - (size_t)fs->trail; k++)
         li->kinds |= field_kind(fs_get(fs, k), fs->len[k], decimal);
     if (fs->n < fs->total)
@@ -243,15 +251,14 @@ static const candidate candidates[] = {
     {'\t', '.'}, {'\t', ','}, {';', '.'}, {';', ','}, {',', '.'}, {' ', '.'}, {' ', ','}};
 #define NCAND (sizeof candidates / sizeof candidates[0])
 
-/* Most common field count among numeric rows with at least min_fields fields;
- * returns how many rows have it (0 when none). */
-static size_t score(const line_info *li, size_t n, size_t min_fields, size_t *mode)
+/* Most common field count among numeric rows; when every such row ends in an
+ * empty field, that is a trailing delimiter and one less is the column count.
+ * Returns how many rows have it (0 when none, or fewer than min_fields columns). */
+static size_t score(const line_info *li, size_t n, size_t min_fields, size_t *ncols)
 {
     size_t best = 0, best_count = 0;
     for (size_t i = 0; i < n; i++) {
-        if (!is_numeric_row(&li[i]) || li[i].fields < min_fields)
-            continue;
-        if (li[i].fields == best)
+        if (!is_numeric_row(&li[i]) || li[i].fields == best)
             continue;
         size_t count = 0;
         for (size_t j = 0; j < n; j++)
@@ -263,8 +270,12 @@ static size_t score(const line_info *li, size_t n, size_t min_fields, size_t *mo
         if (best_count * 2 > n)
             break;
     }
-    *mode = best;
-    return best_count;
+    int all_trail = best_count > 0;
+    for (size_t i = 0; i < n && all_trail; i++)
+        if (is_numeric_row(&li[i]) && li[i].fields == best)
+            all_trail = li[i].trail;
+    *ncols = best - (size_t)all_trail;
+    return *ncols >= min_fields ? best_count : 0;
 }
 
 /* ---- header names and units ---- */
@@ -560,7 +571,7 @@ static size_t find_header(const head *h, tf_csv_layout *lay, fieldset *fs, size_
         if (blank(h, i))
             continue;
         classify(h, i, lay->delim, lay->decimal, fs, &li);
-        if (is_numeric_row(&li) && li.fields == lay->ncols) {
+        if (is_numeric_row(&li) && row_fits(&li, lay->ncols)) {
             if (first_data == h->nlines)
                 first_data = i;
             break;
@@ -574,7 +585,7 @@ static size_t find_header(const head *h, tf_csv_layout *lay, fieldset *fs, size_
         if (j >= h->nlines)
             continue;
         classify(h, j, lay->delim, lay->decimal, fs, &li);
-        if (is_numeric_row(&li) && li.fields == lay->ncols) {
+        if (is_numeric_row(&li) && row_fits(&li, lay->ncols)) {
             *header = i;
             return j;
         }

@@ -90,16 +90,18 @@ void tf_time_acc_free(tf_time_acc *a)
 /* Largest deviation of one step from the uniform step that rounding to the
  * printed digits can explain: each value is within q/2 of the true time, so a
  * step is within (q_a + q_b)/2; 1.5x that leaves room for the reference step's
- * own small error, plus a few ulps of the values themselves. */
-static double step_tolerance(double qa, double qb, double t)
+ * own small error (q is never below a few ulps of the value itself). */
+static double step_tolerance(double qa, double qb)
 {
-    return 0.75 * (qa + qb) + 8.0 * DBL_EPSILON * fabs(t);
+    return 0.75 * (qa + qb);
 }
 
 int tf_time_acc_add(tf_time_acc *a, double t, double q, size_t line, char *msg,
                     size_t msg_size)
 {
     size_t k = a->n;
+    if (q < 4.0 * DBL_EPSILON * fabs(t))
+        q = 4.0 * DBL_EPSILON * fabs(t); /* no finer than the double itself */
     if (k == 0) {
         a->t_first = t;
         a->q_first = q;
@@ -107,7 +109,7 @@ int tf_time_acc_add(tf_time_acc *a, double t, double q, size_t line, char *msg,
         a->q_max = a->q_min = q;
     } else {
         double d = t - a->t_prev;
-        double tol = step_tolerance(q, a->q_prev, t);
+        double tol = step_tolerance(q, a->q_prev);
         if (k == 1 && a->d_ref == 0 && d > 0)
             a->d_ref = d; /* no reference from the head: the first step is it */
         if (!(d > 0)) {
@@ -213,7 +215,7 @@ tf_status tf_time_finish(const tf_time_acc *acc, size_t parts, const char *path,
             continue;
         if (prev) { /* the step across the boundary between two parser threads */
             double d = a->t_first - prev->t_prev;
-            double tol = step_tolerance(a->q_first, prev->q_prev, a->t_first);
+            double tol = step_tolerance(a->q_first, prev->q_prev);
             if (!(d > 0) || fabs(d - D) > tol)
                 return tf_error_set(err, TF_ERR_DATA,
                                     "%s:%zu:%zu: expected a time step of %.6g s (within the "

@@ -38,6 +38,13 @@ typedef struct csv_job {
 
 typedef struct csv_worker {
     csv_job *job;
+    /* copies of what every field needs, kept next to the row state */
+    const int *map;
+    float **out;
+    const double *factor;
+    size_t ncols;
+    int space_mode;
+    char decimal;
     size_t begin, end;                   /* byte range [begin, end), starting at a line */
     size_t line;                         /* line number of the row being read */
     size_t base, cap;                    /* global index of local row 0; rows allowed */
@@ -84,7 +91,7 @@ static void gap(csv_worker *w, int m, size_t c, const char *s, size_t len)
                  tf_error_excerpt(ex, sizeof ex, s, (unsigned)len, TF_CSV_EXCERPT));
         return;
     }
-    w->job->out[m][w->base + w->row] = NAN;
+    w->out[m][w->base + w->row] = NAN;
     if (w->gaps[m]++ == 0)
         w->gap_line[m] = w->line;
 }
@@ -93,10 +100,8 @@ static void time_field(csv_worker *w, size_t c, const char *s, size_t len)
 {
     const tf_csv_layout *lay = w->job->lay;
     double v, f = lay->cols[c].factor;
-    const char *e;
     char ex[64];
-    if (len == 0 || tf_parse_double(s, len, lay->decimal, &v, &e) != 0 || e != s + len ||
-        !isfinite(v)) {
+    if (len == 0 || tf_parse_field(s, len, lay->decimal, &v) != 0 || !isfinite(v)) {
         fail(w, TF_ERR_DATA, c + 1, "expected a time value (a finite number), found '%s'",
              tf_error_excerpt(ex, sizeof ex, s, (unsigned)len, TF_CSV_EXCERPT));
         return;
@@ -108,27 +113,33 @@ static void time_field(csv_worker *w, size_t c, const char *s, size_t len)
     w->have_t = 1;
 }
 
+static void bad_number(csv_worker *w, size_t c, const char *s, size_t len)
+{
+    char ex[64];
+    fail(w, TF_ERR_DATA, c + 1, "expected a number, found '%s'",
+         tf_error_excerpt(ex, sizeof ex, s, (unsigned)len, TF_CSV_EXCERPT));
+}
+
 static void on_field(void *data, size_t len, void *ctx)
 {
     csv_worker *w = ctx;
     const char *s = data;
-    const csv_job *job = w->job;
-    if (w->status || (job->lay->space_mode && len == 0))
+    if (w->status || (len == 0 && w->space_mode))
         return;
     size_t c = w->col++;
-    if (c >= job->lay->ncols) {
-        w->trail = c == job->lay->ncols && len == 0;
+    if (c >= w->ncols) {
+        w->trail = c == w->ncols && len == 0;
         if (w->col > TF_CSV_FIELDS_MAX)
-            fail(w, TF_ERR_DATA, c + 1, "expected %zu fields, found more than %zu",
-                 job->lay->ncols, TF_CSV_FIELDS_MAX);
+            fail(w, TF_ERR_DATA, c + 1, "expected %zu fields, found more than %zu", w->ncols,
+                 TF_CSV_FIELDS_MAX);
         return;
     }
-    int m = job->map[c];
+    int m = w->map[c];
     if (m == MAP_SKIP)
         return;
     if (w->row >= w->cap) {
         fail(w, TF_ERR_DATA, c + 1, "expected %s line ends throughout, found another kind",
-             job->lay->line_end);
+             w->job->lay->line_end);
         return;
     }
     if (m == MAP_TIME) {
@@ -136,29 +147,26 @@ static void on_field(void *data, size_t len, void *ctx)
         return;
     }
     double v;
-    const char *e;
     if (len == 0) {
         gap(w, m, c, s, len);
         return;
     }
-    if (tf_parse_double(s, len, job->lay->decimal, &v, &e) != 0 || e != s + len) {
-        char ex[64];
-        fail(w, TF_ERR_DATA, c + 1, "expected a number, found '%s'",
-             tf_error_excerpt(ex, sizeof ex, s, (unsigned)len, TF_CSV_EXCERPT));
+    if (tf_parse_field(s, len, w->decimal, &v) != 0) {
+        bad_number(w, c, s, len);
         return;
     }
     if (!isfinite(v)) {
         gap(w, m, c, s, len);
         return;
     }
-    v *= job->factor[m];
+    v *= w->factor[m];
     if (fabs(v) > FLT_MAX) {
         char ex[64];
         fail(w, TF_ERR_DATA, c + 1, "expected a value within +-3.4e38 (single precision), "
              "found '%s'", tf_error_excerpt(ex, sizeof ex, s, (unsigned)len, TF_CSV_EXCERPT));
         return;
     }
-    job->out[m][w->base + w->row] = (float)v;
+    w->out[m][w->base + w->row] = (float)v;
 }
 
 static void on_row(int term, void *ctx)
@@ -492,6 +500,12 @@ static tf_status run_parse(const tf_csv_source *src, const tf_csv_layout *lay, c
     job->out = out;
     job->total = src->size - lay->data_offset;
     for (size_t i = 0; i < *nw && st == TF_OK; i++) {
+        w[i].map = job->map;
+        w[i].out = out;
+        w[i].factor = job->factor;
+        w[i].ncols = lay->ncols;
+        w[i].space_mode = lay->space_mode;
+        w[i].decimal = lay->decimal;
         w[i].gaps = calloc(2 * (job->nout ? job->nout : 1), sizeof(size_t));
         if (!w[i].gaps)
             st = tf_error_set(err, TF_ERR_NOMEM, "out of memory");

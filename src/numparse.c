@@ -25,7 +25,7 @@
 #define TF_MAX_SIG 19                 /* decimal digits that always fit in uint64 */
 #define TF_TWO53 9007199254740992ull  /* 2^53 */
 
-static const double pow10_exact[23] = {
+const double tf_pow10_exact[23] = {
     1e0,  1e1,  1e2,  1e3,  1e4,  1e5,  1e6,  1e7,  1e8,  1e9,  1e10, 1e11,
     1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22};
 
@@ -113,50 +113,34 @@ int tf_parse_double(const char *s, size_t len, char decimal, double *value, cons
     if (i < len && (lower(s[i]) == 'i' || lower(s[i]) == 'n'))
         return parse_special(s, i, len, neg, value, end);
 
+    /* every digit goes into mant; more than TF_MAX_SIG digits (leading zeros
+     * included) could overflow it, and such rare text takes the exact fallback */
     uint64_t mant = 0;
-    int sig = 0;          /* significant digits kept in mant */
-    int truncated = 0;    /* digits beyond TF_MAX_SIG were dropped */
+    size_t nd = 0;        /* digits read */
     long exp10 = 0;       /* value = mant * 10^exp10 */
-    int digits = 0;       /* any digit at all */
-    for (; i < len && s[i] >= '0' && s[i] <= '9'; i++) {
-        digits = 1;
-        if (sig < TF_MAX_SIG) {
-            if (mant || s[i] != '0') {
-                mant = mant * 10 + (uint64_t)(s[i] - '0');
-                sig++;
-            }
-        } else {
-            exp10++;
-            truncated |= s[i] != '0';
-        }
-    }
+    size_t d0 = i;
+    while (i < len && (unsigned)(s[i] - '0') < 10)
+        mant = mant * 10 + (uint64_t)(s[i++] - '0');
+    nd = i - d0;
     if (i < len && s[i] == decimal) {
-        size_t j = i + 1;
-        for (; j < len && s[j] >= '0' && s[j] <= '9'; j++) {
-            digits = 1;
-            if (sig < TF_MAX_SIG) {
-                if (mant || s[j] != '0') {
-                    mant = mant * 10 + (uint64_t)(s[j] - '0');
-                    sig++;
-                }
-                exp10--;
-            } else {
-                truncated |= s[j] != '0';
-            }
-        }
-        if (digits)
-            i = j;
+        size_t f0 = ++i;
+        while (i < len && (unsigned)(s[i] - '0') < 10)
+            mant = mant * 10 + (uint64_t)(s[i++] - '0');
+        exp10 = -(long)(i - f0);
+        nd += i - f0;
+        if (nd == 0)
+            return -1; /* a lone decimal mark */
     }
-    if (!digits)
+    if (nd == 0)
         return -1;
     if (i < len && (s[i] == 'e' || s[i] == 'E')) {
         size_t j = i + 1;
         int eneg = 0;
         if (j < len && (s[j] == '+' || s[j] == '-'))
             eneg = s[j++] == '-';
-        if (j < len && s[j] >= '0' && s[j] <= '9') {
+        if (j < len && (unsigned)(s[j] - '0') < 10) {
             long e = 0;
-            for (; j < len && s[j] >= '0' && s[j] <= '9'; j++)
+            for (; j < len && (unsigned)(s[j] - '0') < 10; j++)
                 if (e < 100000)
                     e = e * 10 + (s[j] - '0');
             exp10 += eneg ? -e : e;
@@ -164,14 +148,16 @@ int tf_parse_double(const char *s, size_t len, char decimal, double *value, cons
         }
     }
     *end = s + i;
-    if (mant == 0 && !truncated) {
+    if (nd > TF_MAX_SIG)
+        return parse_slow(s, i, decimal, value);
+    if (mant == 0) {
         *value = neg ? -0.0 : 0.0;
         return 0;
     }
-    if (TF_FAST_PATH && !truncated && mant <= TF_TWO53) {
+    if (TF_FAST_PATH && mant <= TF_TWO53) {
         double m = (double)mant;
         if (exp10 >= -22 && exp10 <= 22) {
-            m = exp10 < 0 ? m / pow10_exact[-exp10] : m * pow10_exact[exp10];
+            m = exp10 < 0 ? m / tf_pow10_exact[-exp10] : m * tf_pow10_exact[exp10];
             *value = neg ? -m : m;
             return 0;
         }

@@ -1,0 +1,540 @@
+/* Tests of the CSV importer: dialects, time base, options, bad inputs, two-thread parsing. */
+#include "tf_test.h"
+
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include <tankfit/import.h>
+
+#include "csv_internal.h"
+
+/* ---- helpers ---- */
+
+static tf_capture *load(const char *path, const tf_import_options *opt)
+{
+    tf_capture *cap = NULL;
+    tf_error err;
+    tf_error_clear(&err);
+    tf_status st = tf_import_csv(path, opt, &cap, &err);
+    if (st != TF_OK)
+        fail_msg("%s: unexpected error %d: %s", path, (int)st, err.msg);
+    assert_non_null(cap);
+    return cap;
+}
+
+static tf_capture *load_text(const char *name, const char *text, const tf_import_options *opt)
+{
+    const char *path = tf_test_tmpfile(name);
+    assert_int_equal(tf_test_write(path, text), 0);
+    return load(path, opt);
+}
+
+/* The import must fail with code and a message containing fragment. */
+static void expect_error(const char *path, const tf_import_options *opt, tf_status code,
+                         const char *fragment)
+{
+    tf_capture *cap = (tf_capture *)1;
+    tf_error err;
+    tf_error_clear(&err);
+    tf_status st = tf_import_csv(path, opt, &cap, &err);
+    if (st != code || !strstr(err.msg, fragment))
+        fail_msg("%s: expected code %d with '%s', got %d: '%s'", path, (int)code, fragment,
+                 (int)st, err.msg);
+    assert_null(cap);
+}
+
+static void expect_text_error(const char *name, const char *text, const tf_import_options *opt,
+                              tf_status code, const char *fragment)
+{
+    const char *path = tf_test_tmpfile(name);
+    assert_int_equal(tf_test_write(path, text), 0);
+    expect_error(path, opt, code, fragment);
+}
+
+static void assert_samples(const tf_channel *ch, const float *want, size_t n)
+{
+    for (size_t k = 0; k < n; k++)
+        if (ch->samples[k] != want[k])
+            fail_msg("channel %s sample %zu: %.9g, expected %.9g", ch->name, k,
+                     (double)ch->samples[k], (double)want[k]);
+}
+
+/* ---- dialects ---- */
+
+static void test_import_csv_comma_header_units(void **state)
+{
+    (void)state;
+    /* expected values: the decimal literals rounded to float (C's own conversion);
+     * "v [kV]" scales to volts (SI prefix k = 1e3, SI brochure) */
+    tf_capture *cap = load_text("comma.csv",
+                                "t [s],v [kV],i_load (A)\n"
+                                "0.0e+00,1.5,-2.25\n"
+                                "1.0e-06,-0.5,3.125e-03\n"
+                                "2.0e-06,2,1E2\n",
+                                NULL);
+    assert_int_equal(cap->n, 3);
+    assert_int_equal(cap->nchan, 2);
+    assert_string_equal(cap->ch[0].name, "v");
+    assert_string_equal(cap->ch[0].unit, "V");
+    assert_true(cap->ch[0].scale == 1000.0);
+    assert_string_equal(cap->ch[1].name, "i_load");
+    assert_string_equal(cap->ch[1].unit, "A");
+    const float v[] = {1500.0f, -500.0f, 2000.0f}, i[] = {-2.25f, 3.125e-3f, 100.0f};
+    assert_samples(&cap->ch[0], v, 3);
+    assert_samples(&cap->ch[1], i, 3);
+    assert_true(fabs(cap->dt_s - 1e-6) < 1e-15);
+    assert_true(fabs(cap->t0_s) < 1e-15);
+    assert_int_equal(cap->dialect.delimiter, ',');
+    assert_int_equal(cap->dialect.decimal, '.');
+    assert_int_equal(cap->dialect.header_line, 1);
+    assert_int_equal(cap->dialect.time_column, 0);
+    assert_string_equal(cap->dialect.line_end, "LF");
+    assert_string_equal(cap->dialect.format, "csv");
+    tf_capture_destroy(cap);
+}
+
+static void test_import_csv_semicolon_decimal_comma_bom_crlf(void **state)
+{
+    (void)state;
+    tf_capture *cap = load_text("semi.csv",
+                                "\xef\xbb\xbf"
+                                "Record;bench A\r\n"
+                                "Sample interval;1,0e-3\r\n"
+                                "\r\n"
+                                "Zeit [ms];U [V];I [mA]\r\n"
+                                "0,000;1,25;-500\r\n"
+                                "\r\n"
+                                "0,001;-1,5e1;250,5\r\n"
+                                "0,002;2,0;0\r\n",
+                                NULL);
+    assert_int_equal(cap->n, 3);
+    assert_int_equal(cap->dialect.delimiter, ';');
+    assert_int_equal(cap->dialect.decimal, ',');
+    assert_int_equal(cap->dialect.has_bom, 1);
+    assert_string_equal(cap->dialect.line_end, "CRLF");
+    assert_int_equal(cap->dialect.header_line, 4);
+    assert_int_equal(cap->dialect.metadata_lines, 2);
+    assert_int_equal(cap->nmeta, 2);
+    assert_string_equal(cap->metadata[0], "Record;bench A");
+    assert_string_equal(cap->metadata[1], "Sample interval;1,0e-3");
+    /* ms and mA scale to s and A (SI prefix m = 1e-3) */
+    assert_true(fabs(cap->dt_s - 1e-6) < 1e-18);
+    assert_string_equal(cap->ch[1].unit, "A");
+    const float u[] = {1.25f, -15.0f, 2.0f};
+    const float i[] = {(float)(-500 * 1e-3), (float)(250.5 * 1e-3), 0.0f};
+    assert_samples(&cap->ch[0], u, 3);
+    assert_samples(&cap->ch[1], i, 3);
+    tf_capture_destroy(cap);
+}
+
+static void test_import_csv_tab_cr_no_header(void **state)
+{
+    (void)state;
+    tf_capture *cap = load_text("tab.csv", "0.0\t1\t-1\r1.0\t2\t-2\r2.0\t3\t-3\r", NULL);
+    assert_int_equal(cap->n, 3);
+    assert_int_equal(cap->dialect.delimiter, '\t');
+    assert_string_equal(cap->dialect.line_end, "CR");
+    assert_int_equal(cap->dialect.header_line, 0);
+    /* no header: names col1, col2, ... by file column; col1 is the time base
+     * because it increases strictly */
+    assert_int_equal(cap->dialect.time_column, 0);
+    assert_int_equal(cap->nchan, 2);
+    assert_string_equal(cap->ch[0].name, "col2");
+    assert_string_equal(cap->ch[1].name, "col3");
+    assert_true(cap->dt_s == 1.0);
+    const float b[] = {-1, -2, -3};
+    assert_samples(&cap->ch[1], b, 3);
+    tf_capture_destroy(cap);
+}
+
+static void test_import_csv_space_runs(void **state)
+{
+    (void)state;
+    tf_capture *cap = load_text("space.txt",
+                                "# plain text export\n"
+                                "  time   v [V]    i [A]\n"
+                                "  0.000e+00   1.0    -2.5  \n"
+                                "  1.000e-07  -1.0     2.5\n"
+                                "\n"
+                                "  2.000e-07   0.5e1   0\n",
+                                NULL);
+    assert_int_equal(cap->dialect.delimiter, ' ');
+    assert_int_equal(cap->n, 3);
+    assert_int_equal(cap->nchan, 2);
+    assert_string_equal(cap->ch[0].name, "v");
+    assert_string_equal(cap->ch[0].unit, "V");
+    assert_string_equal(cap->ch[1].name, "i");
+    const float v[] = {1.0f, -1.0f, 5.0f};
+    assert_samples(&cap->ch[0], v, 3);
+    assert_int_equal(cap->nmeta, 1);
+    assert_true(fabs(cap->dt_s - 1e-7) < 1e-18);
+    tf_capture_destroy(cap);
+}
+
+static void test_import_csv_quotes_trailing_delimiter_spaces(void **state)
+{
+    (void)state;
+    tf_capture *cap = load_text("quoted.csv",
+                                "\"time\", \"v, out\" ,\"i\",\n"
+                                "\"0\", \"1.5\" , 2 ,\n"
+                                " 1e-3 ,\"2.5\",3,\n"
+                                "2e-3,3.5,  4  ,\n",
+                                NULL);
+    assert_int_equal(cap->n, 3);
+    assert_int_equal(cap->nchan, 2);
+    assert_string_equal(cap->ch[0].name, "v, out");
+    const float v[] = {1.5f, 2.5f, 3.5f}, i[] = {2, 3, 4};
+    assert_samples(&cap->ch[0], v, 3);
+    assert_samples(&cap->ch[1], i, 3);
+    tf_capture_destroy(cap);
+}
+
+static void test_import_csv_sample_rate_no_time(void **state)
+{
+    (void)state;
+    tf_import_options opt;
+    tf_import_options_init(&opt);
+    opt.sample_rate_hz = 2e6;
+    /* with a rate given, an increasing first column is a channel, not a guess at time */
+    tf_capture *cap = load_text("rate.csv", "a,b\n1,5\n2,4\n3,3\n", &opt);
+    assert_int_equal(cap->nchan, 2);
+    assert_int_equal(cap->dialect.time_column, -1);
+    assert_true(cap->dt_s == 0.5e-6);
+    assert_true(cap->t0_s == 0);
+    tf_capture_destroy(cap);
+    /* a single column is one channel when the rate is known */
+    cap = load_text("single.csv", "v\n1\n2\n3\n4\n", &opt);
+    assert_int_equal(cap->nchan, 1);
+    assert_int_equal(cap->n, 4);
+    tf_capture_destroy(cap);
+}
+
+/* ---- time base ---- */
+
+static void test_import_csv_time_few_digits(void **state)
+{
+    (void)state;
+    /* t = 1.234567e-3 + k * 1.00003e-6 printed with 6 significant digits
+     * (resolution 1e-8, 1 % of a step): each value is off by up to half a unit
+     * in the last digit, yet the least-squares fit recovers dt far better than
+     * one value's resolution (source: ordinary least squares of a uniform
+     * grid, slope error ~ q * sqrt(12 / n^3) for rounding errors of width q) */
+    size_t n = 2000;
+    char *text = malloc(n * 40 + 64);
+    size_t k0 = (size_t)sprintf(text, "time,v\n");
+    double t0 = 1.234567e-3, dt = 1.00003e-6;
+    for (size_t k = 0; k < n; k++)
+        k0 += (size_t)sprintf(text + k0, "%.5e,%zu\n", t0 + (double)k * dt, k % 7);
+    tf_capture *cap = load_text("fewdigits.csv", text, NULL);
+    free(text);
+    assert_int_equal(cap->n, n);
+    /* resolution: 6 significant digits of 1.2e-3 .. 3.2e-3 -> 1e-8 */
+    assert_true(fabs(cap->dialect.time_resolution_s - 1e-8) < 1e-20);
+    assert_true(fabs(cap->dt_s - dt) / dt < 1e-6);
+    assert_true(fabs(cap->t0_s - t0) < 1e-8);
+    tf_capture_destroy(cap);
+}
+
+static void test_import_csv_time_errors(void **state)
+{
+    (void)state;
+    /* a jump of one missing sample names its line */
+    expect_error(tf_test_src("tests/bad/nonuniform_time.csv"), NULL, TF_ERR_DATA,
+                 "nonuniform_time.csv:7:1: expected a time step of 1e-06 s");
+    /* a change of rate half way (each later step 0.6 units of the last digit
+     * longer: within the step check) is caught by the residuals of the
+     * least-squares line */
+    size_t n = 400;
+    char *text = malloc(n * 40 + 64);
+    size_t k0 = (size_t)sprintf(text, "t,v\n");
+    for (size_t k = 0; k < n; k++)
+        k0 += (size_t)sprintf(text + k0, "%.6f,1\n",
+                              1.0 + (double)k * 1e-3 + (k > 200 ? 0.6e-6 * (double)(k - 200) : 0));
+    expect_text_error("drift.csv", text, NULL, TF_ERR_DATA,
+                      "expected times on a uniform grid t0 + k*dt");
+    free(text);
+    /* decreasing time */
+    expect_text_error("backwards.csv", "t,v\n0.000,1\n0.001,2\n0.002,3\n0.001,4\n", NULL,
+                      TF_ERR_DATA, "backwards.csv:5:1: expected a time later than 0.002 s");
+    /* no time column and no rate */
+    expect_error(tf_test_src("tests/bad/no_time.csv"), NULL, TF_ERR_DATA,
+                 "no_time.csv:1:1: expected a time column");
+    expect_error(tf_test_src("tests/bad/no_time.csv"), NULL, TF_ERR_DATA, "--sample-rate");
+    /* one data row cannot give a sample period */
+    expect_text_error("onerow.csv", "t,v\n0,1\n", NULL, TF_ERR_DATA,
+                      "onerow.csv:2:1: expected at least 2 data rows");
+}
+
+/* ---- bad-input corpus (tests/bad) ---- */
+
+static void test_import_csv_bad_corpus(void **state)
+{
+    (void)state;
+    static const struct {
+        const char *file;
+        tf_status code;
+        const char *fragment;
+    } cases[] = {
+        {"ragged.csv", TF_ERR_DATA, "ragged.csv:4:3: expected 3 fields as in line 1, found 2"},
+        {"nonnumeric.csv", TF_ERR_DATA, "nonnumeric.csv:3:2: expected a number, found '12V'"},
+        {"empty.csv", TF_ERR_DATA, "empty.csv:1:1: expected a header or rows of numbers, "
+                                   "found an empty file"},
+        {"header_only.csv", TF_ERR_DATA,
+         "header_only.csv:2:1: expected rows of numbers after line 1, found the end of the file"},
+        /* BOM and CRLF must not shift the line count */
+        {"bom_crlf.csv", TF_ERR_DATA, "bom_crlf.csv:4:2: expected a number, found 'x'"},
+        /* a point in a decimal-comma file */
+        {"decimal_comma.csv", TF_ERR_DATA,
+         "decimal_comma.csv:4:2: expected a number, found '1.75'"},
+        {"nonuniform_time.csv", TF_ERR_DATA, "nonuniform_time.csv:7:1: expected a time step"},
+        {"no_time.csv", TF_ERR_DATA, "no_time.csv:1:1: expected a time column"},
+        {"one_column.csv", TF_ERR_DATA, "one_column.csv:1:1: expected at least 2 columns"},
+        {"gap.csv", TF_ERR_DATA, "gap.csv:3:3: expected a number, found an empty field"},
+    };
+    for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
+        char rel[256];
+        snprintf(rel, sizeof rel, "tests/bad/%s", cases[i].file);
+        expect_error(tf_test_src(rel), NULL, cases[i].code, cases[i].fragment);
+    }
+    expect_error(tf_test_src("tests/bad/no-such-file.csv"), NULL, TF_ERR_NOINPUT,
+                 "no-such-file.csv: cannot open");
+    expect_error(tf_test_src("tests/bad"), NULL, TF_ERR_NOINPUT, "cannot open");
+}
+
+static void test_import_csv_bom_crlf_good_twin(void **state)
+{
+    (void)state;
+    /* the corpus file with its bad value fixed imports with the right lines */
+    tf_capture *cap = load_text("bom_ok.csv",
+                                "\xef\xbb\xbft [s];v [V]\r\n0.000000e+00;1\r\n1.000000e-06;2\r\n"
+                                "2.000000e-06;3\r\n3.000000e-06;4\r\n",
+                                NULL);
+    assert_int_equal(cap->n, 4);
+    assert_int_equal(cap->dialect.has_bom, 1);
+    assert_string_equal(cap->ch[0].name, "v");
+    tf_capture_destroy(cap);
+}
+
+static void test_import_csv_gaps(void **state)
+{
+    (void)state;
+    tf_import_options opt;
+    tf_import_options_init(&opt);
+    opt.gaps_interpolate = 1;
+    tf_capture *cap = load(tf_test_src("tests/bad/gap.csv"), &opt);
+    /* linear interpolation between the neighbours (v: 1.0, nan, 2.5 is a run of
+     * one at line 4; i: 2.0, empty, 3.0) */
+    const float v[] = {1.0f, 1.5f, 2.0f, 2.5f}, i[] = {2.0f, 2.5f, 3.0f, 3.5f};
+    assert_samples(&cap->ch[0], v, 4);
+    assert_samples(&cap->ch[1], i, 4);
+    assert_int_equal(cap->ch[0].gaps_filled, 1);
+    assert_int_equal(cap->ch[1].gaps_filled, 1);
+    assert_int_equal(cap->nwarn, 2);
+    assert_non_null(strstr(cap->warnings[0], "linear interpolation"));
+    tf_capture_destroy(cap);
+    /* a non-finite value without --gaps: line and column */
+    expect_text_error("inf.csv", "t,v\n0,1\n1,inf\n2,3\n", NULL, TF_ERR_DATA,
+                      "inf.csv:3:2: expected a finite number, found 'inf'");
+    /* a channel with no finite value at all */
+    expect_text_error("allgap.csv", "t,v,w\n0,1,\n1,2,nan\n2,3,\n", &opt, TF_ERR_DATA,
+                      "expected at least one finite value in channel 'w'");
+}
+
+static void test_import_csv_huge_line(void **state)
+{
+    (void)state;
+    /* a 3 MiB first line, and a 3 MiB field further down: bounded memory, a
+     * clear error (1 MiB limit) */
+    size_t big = (size_t)3 << 20;
+    char *text = malloc(big + 256);
+    memset(text, '7', big);
+    text[big] = '\0';
+    expect_text_error("huge1.csv", text, NULL, TF_ERR_DATA, "huge1.csv:1:1: expected a line end");
+    int k = sprintf(text, "t,v\n0,1\n1,2\n2,");
+    memset(text + k, '5', big);
+    strcpy(text + k + big, "\n3,4\n");
+    expect_text_error("huge2.csv", text, NULL, TF_ERR_DATA,
+                      "huge2.csv:4:2: expected fields of at most 1 MiB");
+    free(text);
+}
+
+/* ---- options ---- */
+
+static void test_import_csv_channel_options(void **state)
+{
+    (void)state;
+    tf_import_options opt;
+    tf_import_options_init(&opt);
+    snprintf(opt.channels, sizeof opt.channels, "c, a");
+    const char *text = "t,a,b,c\n0,1,2,3\n1,4,5,6\n2,7,8,9\n";
+    tf_capture *cap = load_text("chan.csv", text, &opt);
+    assert_int_equal(cap->nchan, 2);
+    assert_string_equal(cap->ch[0].name, "c");
+    assert_string_equal(cap->ch[1].name, "a");
+    const float c[] = {3, 6, 9};
+    assert_samples(&cap->ch[0], c, 3);
+    tf_capture_destroy(cap);
+
+    tf_error err;
+    tf_import_options_init(&opt);
+    assert_int_equal(tf_import_options_add(&opt, TF_OPT_SCALE, "b=10A/V", &err), TF_OK);
+    assert_int_equal(tf_import_options_add(&opt, TF_OPT_RENAME, "a=v_out", &err), TF_OK);
+    cap = load_text("chan2.csv", text, &opt);
+    assert_string_equal(cap->ch[0].name, "v_out");
+    assert_string_equal(cap->ch[1].unit, "A");
+    const float b[] = {20, 50, 80};
+    assert_samples(&cap->ch[1], b, 3);
+    tf_capture_destroy(cap);
+
+    tf_import_options_init(&opt);
+    snprintf(opt.channels, sizeof opt.channels, "a,zz");
+    expect_text_error("chan3.csv", text, &opt, TF_ERR_USAGE, "no channel 'zz'");
+    snprintf(opt.channels, sizeof opt.channels, "t");
+    expect_text_error("chan4.csv", text, &opt, TF_ERR_USAGE, "the time base is not a channel");
+}
+
+/* ---- outside reference: Python's csv module ---- */
+
+static void check_python_dialect(const char *dialect)
+{
+    if (!tf_test_have("/usr/bin/python3"))
+        skip();
+    const size_t rows = 3000;
+    char csvname[64], expname[64];
+    snprintf(csvname, sizeof csvname, "py-%s.csv", dialect);
+    snprintf(expname, sizeof expname, "py-%s.exp", dialect);
+    const char *csvpath = tf_test_tmpfile(csvname), *exppath = tf_test_tmpfile(expname);
+    assert_int_equal(tf_test_system("/usr/bin/python3 '%s' %s %zu 7 '%s' '%s'",
+                                    tf_test_src("tests/support/import_csv_pywrite.py"), dialect,
+                                    rows, csvpath, exppath),
+                     0);
+    tf_capture *cap = load(csvpath, NULL);
+    FILE *e = fopen(exppath, "r");
+    assert_non_null(e);
+    double t0, dt;
+    assert_int_equal(fscanf(e, "%lf %lf", &t0, &dt), 2);
+    assert_int_equal(cap->n, rows);
+    assert_int_equal(cap->nchan, 3);
+    assert_int_equal(cap->nmeta, 2);
+    assert_string_equal(cap->ch[0].name, "v_out");
+    assert_string_equal(cap->ch[0].unit, "V");
+    assert_string_equal(cap->ch[1].unit, "A");
+    assert_string_equal(cap->ch[2].name, "v_cap");
+    /* reference: the values Python's csv module wrote, rounded to float32 by
+     * struct.pack (IEEE 754 round to nearest): equal bit for bit */
+    for (size_t k = 0; k < rows; k++)
+        for (size_t c = 0; c < 3; c++) {
+            char hex[64];
+            assert_int_equal(fscanf(e, "%63s", hex), 1);
+            float want = (float)strtod(hex, NULL);
+            if (cap->ch[c].samples[k] != want)
+                fail_msg("%s row %zu channel %zu: %a, python %a", dialect, k, c,
+                         (double)cap->ch[c].samples[k], (double)want);
+        }
+    fclose(e);
+    /* the time grid python wrote: t0 + k*dt */
+    assert_true(fabs(cap->dt_s - dt) / dt < 1e-9);
+    assert_true(fabs(cap->t0_s - t0) < dt * 1e-6);
+    tf_capture_destroy(cap);
+}
+
+static void test_import_csv_python_excel(void **state) { (void)state; check_python_dialect("excel"); }
+static void test_import_csv_python_excel_tab(void **state) { (void)state; check_python_dialect("excel-tab"); }
+static void test_import_csv_python_unix(void **state) { (void)state; check_python_dialect("unix"); }
+static void test_import_csv_python_semicolon(void **state) { (void)state; check_python_dialect("semicolon-quoted"); }
+static void test_import_csv_python_decimal_comma(void **state) { (void)state; check_python_dialect("semicolon-decimal-comma"); }
+static void test_import_csv_python_space(void **state) { (void)state; check_python_dialect("space"); }
+
+/* ---- two parser threads ---- */
+
+/* A file above the two-thread threshold with blank lines in the first half:
+ * two threads must give exactly what one gives, and an error in the second
+ * half must name its true line. */
+static void test_import_csv_two_threads(void **state)
+{
+    (void)state;
+    size_t rows = 400000;
+    const char *path = tf_test_tmpfile("big.csv");
+    FILE *f = fopen(path, "w");
+    assert_non_null(f);
+    fprintf(f, "time_s,a,b\n");
+    size_t line = 1;
+    for (size_t k = 0; k < rows; k++) {
+        if (k % 1000 == 17) {
+            fputs("\n", f);
+            line++;
+        }
+        fprintf(f, "%.9e,%.5e,%d\n", -0.01 + (double)k * 1e-7, sin((double)k * 1e-3),
+                (int)(k % 4096));
+        line++;
+    }
+    fclose(f);
+    tf_import_options one, two;
+    tf_import_options_init(&one);
+    tf_import_options_init(&two);
+    one.threads = 1;
+    two.threads = 2;
+    tf_capture *a = load(path, &one), *b = load(path, &two);
+    assert_int_equal(a->n, rows);
+    assert_int_equal(b->n, rows);
+    for (size_t c = 0; c < 2; c++)
+        assert_memory_equal(a->ch[c].samples, b->ch[c].samples, rows * sizeof(float));
+    assert_true(a->dt_s == b->dt_s);
+    assert_true(fabs(a->dt_s - 1e-7) < 1e-16);
+    assert_true(fabs(a->t0_s + 0.01) < 1e-12);
+    /* value check: row 300000 of channel b is 300000 % 4096 */
+    assert_true(a->ch[1].samples[300000] == (float)(300000 % 4096));
+    tf_capture_destroy(a);
+    tf_capture_destroy(b);
+
+    /* a bad field late in the file: the second thread's line count is exact */
+    f = fopen(path, "a");
+    fputs("4.0e-02,abc,1\n", f);
+    fclose(f);
+    char want[128];
+    snprintf(want, sizeof want, "big.csv:%zu:2: expected a number, found 'abc'", line + 1);
+    expect_error(path, &two, TF_ERR_DATA, want);
+    expect_error(path, &one, TF_ERR_DATA, want);
+}
+
+static void test_import_csv_memory_entry(void **state)
+{
+    (void)state;
+    const char text[] = "t,v\n0,1\n1,2\n";
+    tf_capture *cap = NULL;
+    tf_error err;
+    assert_int_equal(tf_csv_import_memory("mem", text, sizeof text - 1, NULL, &cap, &err), TF_OK);
+    assert_int_equal(cap->n, 2);
+    assert_string_equal(cap->path, "mem");
+    tf_capture_destroy(cap);
+}
+
+int main(void)
+{
+    const struct CMUnitTest tests[] = {
+        cmocka_unit_test(test_import_csv_comma_header_units),
+        cmocka_unit_test(test_import_csv_semicolon_decimal_comma_bom_crlf),
+        cmocka_unit_test(test_import_csv_tab_cr_no_header),
+        cmocka_unit_test(test_import_csv_space_runs),
+        cmocka_unit_test(test_import_csv_quotes_trailing_delimiter_spaces),
+        cmocka_unit_test(test_import_csv_sample_rate_no_time),
+        cmocka_unit_test(test_import_csv_time_few_digits),
+        cmocka_unit_test(test_import_csv_time_errors),
+        cmocka_unit_test(test_import_csv_bad_corpus),
+        cmocka_unit_test(test_import_csv_bom_crlf_good_twin),
+        cmocka_unit_test(test_import_csv_gaps),
+        cmocka_unit_test(test_import_csv_huge_line),
+        cmocka_unit_test(test_import_csv_channel_options),
+        cmocka_unit_test(test_import_csv_python_excel),
+        cmocka_unit_test(test_import_csv_python_excel_tab),
+        cmocka_unit_test(test_import_csv_python_unix),
+        cmocka_unit_test(test_import_csv_python_semicolon),
+        cmocka_unit_test(test_import_csv_python_decimal_comma),
+        cmocka_unit_test(test_import_csv_python_space),
+        cmocka_unit_test(test_import_csv_two_threads),
+        cmocka_unit_test(test_import_csv_memory_entry),
+    };
+    return cmocka_run_group_tests(tests, NULL, NULL);
+}

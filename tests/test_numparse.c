@@ -1,0 +1,204 @@
+/* Tests of the fast exact number parser against glibc strtod (correctly rounded). */
+#define _GNU_SOURCE /* strtod_l */
+#include "tf_test.h"
+
+#include <locale.h>
+#include <math.h>
+#include <stdint.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "numparse.h"
+
+static locale_t c_locale;
+
+/* reference: glibc strtod_l in the C locale, correctly rounded (ISO C Annex F,
+ * IEEE 754 round to nearest) */
+static double ref_strtod(const char *s, size_t *used)
+{
+    char *e;
+    double v = strtod_l(s, &e, c_locale);
+    *used = (size_t)(e - s);
+    return v;
+}
+
+static uint64_t bits(double v)
+{
+    uint64_t u;
+    memcpy(&u, &v, sizeof u);
+    return u;
+}
+
+/* Parse s with tf_parse_double and strtod; both must agree bit for bit and on
+ * how much text is a number. */
+static void check_same(const char *s)
+{
+    size_t used;
+    double want = ref_strtod(s, &used);
+    double got = -12345;
+    const char *end = NULL;
+    int r = tf_parse_double(s, strlen(s), '.', &got, &end);
+    if (used == 0) {
+        if (r != -1)
+            fail_msg("'%s': strtod finds no number, tf_parse_double does", s);
+        return;
+    }
+    if (r != 0)
+        fail_msg("'%s': tf_parse_double found no number", s);
+    if ((size_t)(end - s) != used)
+        fail_msg("'%s': consumed %zu chars, strtod %zu", s, (size_t)(end - s), used);
+    if (isnan(want)) {
+        assert_true(isnan(got));
+        return;
+    }
+    if (bits(got) != bits(want))
+        fail_msg("'%s': got %a, strtod %a", s, got, want);
+}
+
+static void test_numparse_known_values(void **state)
+{
+    (void)state;
+    /* the benchmark's value shape, exact powers, the fast path's edges */
+    const char *cases[] = {
+        "-1.23456e-03", "1.2345678e-05", "0", "-0", "0.0", "+7", "5.", ".5", "-.5e1",
+        "1e22", "1e23", "9007199254740992", "9007199254740993", "9007199254740995e-5",
+        "123456789012345678901234567890", "0.1", "0.30000000000000004", "2.2250738585072014e-308",
+        "4.9e-324", "2.4703282292062327e-324", "1.7976931348623157e308", "1.8e308", "1e-400",
+        "1e", "1e+", "1.5e-", "3.25x", "12,5", "1234e25", "1234e30", "00000000000000000000001.5",
+        "0.000000000000000000000000000000000000001", "1E5", "-2.5E-3", NULL};
+    for (int i = 0; cases[i]; i++)
+        check_same(cases[i]);
+}
+
+static void test_numparse_special_and_invalid(void **state)
+{
+    (void)state;
+    const char *cases[] = {"inf", "-inf", "Infinity", "-INFINITY", "nan", "NaN", "-nan",
+                           "nan(123)", "infin", "", "-", "+", ".", "e5", "abc", "-e", NULL};
+    for (int i = 0; cases[i]; i++)
+        check_same(cases[i]);
+    double v;
+    const char *end;
+    assert_int_equal(tf_parse_double("1.5", 0, '.', &v, &end), -1); /* empty range */
+}
+
+/* seeded xorshift64*: reproducible random strings */
+static uint64_t rng_state = 0x9e3779b97f4a7c15ull;
+static uint64_t next_u64(void)
+{
+    rng_state ^= rng_state >> 12;
+    rng_state ^= rng_state << 25;
+    rng_state ^= rng_state >> 27;
+    return rng_state * 2685821657736338717ull;
+}
+
+static void random_number(char *buf, size_t size)
+{
+    size_t k = 0;
+    int ndig = 1 + (int)(next_u64() % 24);
+    int point = (int)(next_u64() % (uint64_t)(ndig + 2)) - 1; /* -1: no point */
+    if (next_u64() & 1)
+        buf[k++] = '-';
+    for (int d = 0; d < ndig && k + 12 < size; d++) {
+        if (d == point)
+            buf[k++] = '.';
+        int lead_zero = (next_u64() % 8) == 0;
+        buf[k++] = (char)('0' + (lead_zero ? 0 : next_u64() % 10));
+    }
+    if (next_u64() % 4 != 0) {
+        int e = (int)(next_u64() % 700) - 360;
+        if (next_u64() % 2)
+            e = (int)(next_u64() % 50) - 25; /* mostly the fast path's range */
+        k += (size_t)snprintf(buf + k, size - k, "%c%d", (next_u64() & 1) ? 'e' : 'E', e);
+    }
+    buf[k] = '\0';
+}
+
+static void test_numparse_random_vs_strtod(void **state)
+{
+    (void)state;
+    char buf[64];
+    for (int i = 0; i < 300000; i++) {
+        random_number(buf, sizeof buf);
+        check_same(buf);
+    }
+}
+
+/* Short mantissas with small exponents are the fast path; these values are the
+ * ones a scope export prints (6 to 8 significant digits). */
+static void test_numparse_random_short_vs_strtod(void **state)
+{
+    (void)state;
+    char buf[64];
+    for (int i = 0; i < 300000; i++) {
+        double x = (double)(int64_t)(next_u64() % 20000001) - 10000000;
+        int e = (int)(next_u64() % 30) - 15;
+        snprintf(buf, sizeof buf, "%.*e", (int)(next_u64() % 9), x * pow(10, e));
+        check_same(buf);
+    }
+}
+
+static void test_numparse_decimal_comma(void **state)
+{
+    (void)state;
+    char buf[64];
+    for (int i = 0; i < 50000; i++) {
+        random_number(buf, sizeof buf);
+        size_t used;
+        double want = ref_strtod(buf, &used);
+        if (used == 0)
+            continue;
+        char *dot = strchr(buf, '.');
+        if (dot)
+            *dot = ',';
+        double got;
+        const char *end;
+        assert_int_equal(tf_parse_double(buf, strlen(buf), ',', &got, &end), 0);
+        assert_int_equal((size_t)(end - buf), used);
+        if (bits(got) != bits(want))
+            fail_msg("'%s' with decimal comma: got %a, strtod %a", buf, got, want);
+    }
+    /* with a decimal comma a point ends the number */
+    double v;
+    const char *end;
+    const char *s = "1.5";
+    assert_int_equal(tf_parse_double(s, 3, ',', &v, &end), 0);
+    assert_true(v == 1.0 && end == s + 1);
+}
+
+static void test_numparse_long_input(void **state)
+{
+    (void)state;
+    /* a number of 400 digits (not NUL-terminated in the middle of a buffer)
+     * takes the exact fallback with a heap copy */
+    char buf[512];
+    memset(buf, '7', 400);
+    buf[1] = '.';
+    memcpy(buf + 400, "e-2;junk", 9);
+    double got;
+    const char *end;
+    assert_int_equal(tf_parse_double(buf, 403, '.', &got, &end), 0);
+    assert_ptr_equal(end, buf + 403);
+    buf[403] = '\0';
+    size_t used;
+    double want = ref_strtod(buf, &used);
+    assert_int_equal(used, 403);
+    assert_true(bits(got) == bits(want));
+}
+
+int main(void)
+{
+    c_locale = newlocale(LC_ALL_MASK, "C", (locale_t)0);
+    const struct CMUnitTest tests[] = {
+        cmocka_unit_test(test_numparse_known_values),
+        cmocka_unit_test(test_numparse_special_and_invalid),
+        cmocka_unit_test(test_numparse_random_vs_strtod),
+        cmocka_unit_test(test_numparse_random_short_vs_strtod),
+        cmocka_unit_test(test_numparse_decimal_comma),
+        cmocka_unit_test(test_numparse_long_input),
+    };
+    int r = cmocka_run_group_tests(tests, NULL, NULL);
+    freelocale(c_locale);
+    return r;
+}
