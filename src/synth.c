@@ -661,7 +661,8 @@ static tf_status step(tf_synth *s)
 
 tf_status tf__advance(tf_synth *s, double t, tf_error *err)
 {
-    while (seg_at(s, s->seg_count - 1)->t1 < t) {
+    /* a sample at exactly an event time shows the state after the event */
+    while (seg_at(s, s->seg_count - 1)->t1 <= t) {
         if (step(s) != TF_OK)
             return tf_error_set(err, TF_ERR_NOMEM, "simulator: out of memory");
         seg_trim(s);
@@ -852,48 +853,143 @@ static void from_dev(const tf_seg *g, const double y[3], double x[3], double *di
     *didt = (g->cs == TF_CS_NONE) ? 0 : (g->E - g->R * x[0] - x[1]) / g->L;
 }
 
+/* First sample index k >= 0 with base + k dt >= t (n when none), exact for the same
+ * expression the samples use. */
+static size_t first_at_or_after(double base, double dt, size_t n, double t)
+{
+    double c = ceil((t - base) / dt);
+    if (!(c > 0))
+        return 0;
+    if (c >= (double)n)
+        c = (double)n;
+    size_t k = (size_t)c;
+    while (k > 0 && base + (double)(k - 1) * dt >= t)
+        k--;
+    while (k < n && base + (double)k * dt < t)
+        k++;
+    return k;
+}
+
+/* Samples of one segment run [ka, kb) of a skew group: exact anchors every
+ * ANCHOR_EVERY samples, the segment's exact propagator between them. */
+static void fill_run(const tf_synth *s, const tf_seg *g, double base, double dt, size_t ka,
+                     size_t kb, float *const o[4])
+{
+    double P[9] = {0};
+    int dim = tf__seg_step_matrix(g, dt, P);
+    int cs = g->cs, stray = (cs == CS(0, TF_K_DIODE)) && s->ls > 0;
+    double E = g->E, R = g->R, L = g->L, ls = s->ls;
+    double vak0 = vak_static(s, 0, cs, 0), vak_slope = 0;
+    if (cs == TF_CS_NONE) /* node floats with vc: v_ak1 is affine in vc */
+        vak_slope = vak_static(s, 0, cs, 1) - vak0;
+    for (size_t k = ka; k < kb;) {
+        size_t end = k + ANCHOR_EVERY < kb ? k + ANCHOR_EVERY : kb;
+        double x[3], didt, y[3];
+        tf__seg_state(g, base + (double)k * dt, x, &didt);
+        to_dev(g, x, y);
+        for (; k < end; k++) {
+            from_dev(g, y, x, &didt);
+            if (o[TF_SYN_I_LOAD])
+                o[TF_SYN_I_LOAD][k] = (float)x[0];
+            if (o[TF_SYN_V_C])
+                o[TF_SYN_V_C][k] = (float)x[1];
+            if (o[TF_SYN_V_OUT])
+                o[TF_SYN_V_OUT][k] = (float)(cs == TF_CS_NONE ? x[1] : E);
+            if (o[TF_SYN_V_AK1]) {
+                double v = vak0 + vak_slope * x[1];
+                if (stray)
+                    v += ls * (E - R * x[0] - x[1]) / L;
+                o[TF_SYN_V_AK1][k] = (float)v;
+            }
+            if (dim == 2) {
+                double y0 = P[0] * y[0] + P[1] * y[1];
+                y[1] = P[2] * y[0] + P[3] * y[1];
+                y[0] = y0;
+            } else if (dim == 3) {
+                double z[3];
+                for (int r = 0; r < 3; r++)
+                    z[r] = P[3 * r] * y[0] + P[3 * r + 1] * y[1] + P[3 * r + 2] * y[2];
+                memcpy(y, z, sizeof z);
+            }
+        }
+    }
+}
+
+/* Smallest firing index whose time is > t. */
+static size_t firing_after(const tf_synth *s, double t)
+{
+    size_t lo = 0, hi;
+    double ft;
+    int fp;
+    if (s->topo != TF_TOPO_RING_DOWN && !s->d.n_firing_times) {
+        double rate = s->npos == 2 ? 2 * s->f : s->f, c = floor(t * rate);
+        lo = c > 2 ? (size_t)c - 2 : 0;
+        while (tf__firing(s, lo, &ft, &fp) && ft <= t)
+            lo++;
+        return lo;
+    }
+    hi = s->topo == TF_TOPO_RING_DOWN ? 1 : s->d.n_firing_times;
+    while (lo < hi) {
+        size_t mid = (lo + hi) / 2;
+        tf__firing(s, mid, &ft, &fp);
+        if (ft <= t)
+            lo = mid + 1;
+        else
+            hi = mid;
+    }
+    return lo;
+}
+
+/* Gate channel c at base + k dt, k in [0, n): 1 inside the pulses of its position. */
+static void fill_gate(const tf_synth *s, int c, double base, double dt, size_t n, float *o)
+{
+    memset(o, 0, n * sizeof *o);
+    int pos = gate_channel_pos(s, c);
+    if (pos < 0)
+        return;
+    double tl = base + (double)(n - 1) * dt, w = s->gate_w, ft;
+    int fp;
+    if (s->topo == TF_TOPO_RING_DOWN) {
+        if (tf__firing(s, 0, &ft, &fp))
+            for (size_t k = first_at_or_after(base, dt, n, ft); k < n; k++)
+                o[k] = 1.0f;
+        return;
+    }
+    for (size_t m = firing_after(s, base - w); tf__firing(s, m, &ft, &fp) && ft <= tl; m++) {
+        if (fp != pos)
+            continue;
+        size_t ka = first_at_or_after(base, dt, n, ft);
+        size_t kb = first_at_or_after(base, dt, n, ft + w);
+        for (size_t k = ka; k < kb; k++)
+            o[k] = 1.0f;
+    }
+}
+
 static void fill_group(tf_synth *s, double t0, double dt, size_t n, double sk,
                        float *const out[TF_SYN_NCHAN], const int *members)
 {
-    size_t gi = seg_find(s, t0 - sk, 0);
-    const tf_seg *g = NULL;
-    double P[9] = {0}, y[3] = {0};
-    int dim = 0;
-    size_t anchor = 0;
-    for (size_t k = 0; k < n; k++) {
-        double t = t0 + (double)k * dt - sk;
-        size_t ng = seg_find(s, t, gi);
-        double x[3], didt;
-        if (!g || ng != gi || k - anchor >= ANCHOR_EVERY) {
-            if (!g || ng != gi) {
-                gi = ng;
-                g = seg_at(s, gi);
-                dim = tf__seg_step_matrix(g, dt, P);
-            }
-            tf__seg_state(g, t, x, &didt);
-            to_dev(g, x, y);
-            anchor = k;
-        } else {
-            double z[3] = {0, 0, 0};
-            for (int r = 0; r < dim; r++)
-                for (int c = 0; c < dim; c++)
-                    z[r] += P[dim * r + c] * y[c];
-            if (dim)
-                memcpy(y, z, sizeof z);
+    double base = t0 - sk;
+    float *o[4] = {0};
+    int analog = 0;
+    for (int c = 0; c < 4; c++)
+        if (members[c]) {
+            o[c] = out[c];
+            analog = 1;
         }
-        from_dev(g, y, x, &didt);
-        double ch[4];
-        tf__channels(s, g, x, didt, ch);
-        for (int c = 0; c < TF_SYN_NCHAN; c++) {
-            if (!members[c])
-                continue;
-            if (c < 4)
-                out[c][k] = (float)ch[c];
-            else {
-                int gp = gate_channel_pos(s, c);
-                out[c][k] = (gp >= 0 && tf__gate_on(s, gp, t)) ? 1.0f : 0.0f;
-            }
-        }
+    for (int c = TF_SYN_G1; c <= TF_SYN_G4; c++)
+        if (members[c])
+            fill_gate(s, c, base, dt, n, out[c]);
+    if (!analog)
+        return;
+    size_t gi = seg_find(s, base, 0), k = 0;
+    while (k < n) {
+        gi = seg_find(s, base + (double)k * dt, gi);
+        const tf_seg *g = seg_at(s, gi);
+        size_t kb = (gi + 1 < s->seg_count) ? first_at_or_after(base, dt, n, g->t1) : n;
+        if (kb <= k)
+            kb = k + 1;
+        fill_run(s, g, base, dt, k, kb, o);
+        k = kb;
     }
 }
 
