@@ -160,6 +160,9 @@ static int check_bytes(pstate *st, const char *line, size_t n)
         unsigned char c = (unsigned char)line[i];
         if (c == 0)
             return fail(st, col, "expected text, found a NUL byte (is this a design file?)");
+        if (c == '\r')
+            return fail(st, col, "expected text, found a carriage return inside a line (line "
+                        "ends must be LF or CRLF)");
         if ((c < 0x20 && c != '\t') || c == 0x7F)
             return fail(st, col, "expected text, found control character 0x%02X", c);
         size_t l = utf8_len((const unsigned char *)line + i, content - i);
@@ -215,8 +218,10 @@ static int check_section(pstate *st, const char *s, size_t n)
 static char *reader(char *str, int num, void *stream)
 {
     pstate *st = stream;
-    if (st->failed || st->pos >= st->len || num < 4)
+    if (st->failed || st->pos >= st->len)
         return NULL;
+    if (num < 4)
+        return fail(st, 0, "internal: line buffer of %d bytes", num), NULL;
     const char *line = st->text + st->pos;
     const char *nl = memchr(line, '\n', st->len - st->pos);
     size_t n = nl ? (size_t)(nl - line) + 1 : st->len - st->pos;
@@ -655,6 +660,8 @@ static int handler(void *user, const char *section, const char *name, const char
     if (!tf_dsection_known(section)) /* the reader stops before this; kept for safety */
         return fail(st, ncol, "key '%s' is in unknown section [%s]",
                     excerpt(ex, sizeof ex, name), section);
+    if (!name[0])
+        return fail(st, col > 1 ? col - 1 : 1, "expected a key name before '='");
     const tf_dkey *k = tf_dkey_find(section, name);
     if (!k) {
         char hint[128];

@@ -7,6 +7,8 @@
 #include <string.h>
 #include <tankfit/design.h>
 
+#include "design_keys.h"
+
 static tf_design *D;
 static tf_error E;
 
@@ -419,6 +421,7 @@ static void test_design_error_syntax(void **state)
     expect_error("[tank]\ncapacitance = 1 uF\njust words\n",
                  "t.ini:3: expected 'key = value', '[section]' or a comment, found 'just words'", NULL);
     expect_error("[tank\ncapacitance = 1 uF\n", "t.ini:1: expected ']' to close the section name", NULL);
+    expect_error("[tank]\n = 1 uF\n", "t.ini:2:", "expected a key name before '='", NULL);
     expect_error("[tank] extra\n", "t.ini:1:8: expected a comment or the end of the line after '[tank]'",
                  NULL);
     /* an indented line continues the previous key in INI: only notes and lists may */
@@ -443,7 +446,8 @@ static void test_design_error_bytes(void **state)
                  NULL);
     expect_error("[record]\nnotes = a\x01" "b\n", "t.ini:2:10: expected text, found control character 0x01",
                  NULL);
-    expect_error("[record]\nnotes = a\rb\n", "control character 0x0D", NULL);
+    expect_error("[record]\nnotes = a\rb\n", "t.ini:2:10: expected text, found a carriage return", NULL);
+    expect_error("[tank]\r[switch]\r", "t.ini:1:7: expected text, found a carriage return", NULL);
     expect_error("[record]\nnotes = \xed\xa0\x80\n", "expected UTF-8 text", NULL); /* a surrogate */
     expect_error("[record]\nnotes = \xc0\xaf\n", "expected UTF-8 text", NULL);     /* overlong */
     char line[400];
@@ -496,6 +500,22 @@ static void test_design_load_errors(void **state)
     char want[600];
     snprintf(want, sizeof want, "%s:2:15: capacitance expects farads (F)", p);
     assert_non_null(strstr(E.msg, want));
+    /* more than 1 MiB is not a design file (comment lines, so only the size fails) */
+    size_t big = (1u << 20) + 1;
+    char *text = malloc(big + 1);
+    assert_non_null(text);
+    for (size_t i = 0; i < big; i++)
+        text[i] = i % 64 == 63 ? '\n' : i % 64 == 0 ? ';' : 'x';
+    text[big] = '\0';
+    const char *q = tf_test_tmpfile("big.ini");
+    assert_int_equal(tf_test_write(q, text), 0);
+    assert_int_equal(tf_design_load(q, D, &E), TF_ERR_DATA);
+    assert_non_null(strstr(E.msg, "larger than 1048576 bytes"));
+    text[big - 2] = '\n';
+    text[big - 1] = '\0'; /* exactly 1 MiB loads */
+    assert_int_equal(tf_test_write(q, text), 0);
+    assert_int_equal(tf_design_load(q, D, &E), TF_OK);
+    free(text);
 }
 
 /* ---- validation --------------------------------------------------------------- */
@@ -722,6 +742,31 @@ static void test_design_example_round_trip(void **state)
     free(copy);
 }
 
+/* docs/design-file.md names every section and key the parser knows. */
+static void test_design_docs_cover_keys(void **state)
+{
+    (void)state;
+    char *doc = tf_test_slurp(tf_test_src("docs/design-file.md"), NULL);
+    assert_non_null(doc);
+    char want[96], missing[160] = "";
+    for (size_t i = 0; tf_design_sections[i] && !missing[0]; i++) {
+        snprintf(want, sizeof want, "### `[%s]`", tf_design_sections[i]);
+        if (!strstr(doc, want))
+            snprintf(missing, sizeof missing, "the heading %s", want);
+    }
+    for (size_t i = 0; tf_dkeys[i].section && !missing[0]; i++) {
+        const char *dot = strchr(tf_dkeys[i].key, '.');
+        snprintf(want, sizeof want, "`%s%s`", dot ? "CH" : tf_dkeys[i].key, dot ? dot : "");
+        if (!strstr(doc, want))
+            snprintf(missing, sizeof missing, "[%s] %s", tf_dkeys[i].section, tf_dkeys[i].key);
+    }
+    if (!missing[0] && !strstr(doc, "`scale.COLUMN`"))
+        snprintf(missing, sizeof missing, "scale.COLUMN");
+    free(doc);
+    if (missing[0])
+        fail_msg("docs/design-file.md does not describe %s", missing);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -746,6 +791,7 @@ int main(void)
         cmocka_unit_test(test_design_validate),
         cmocka_unit_test(test_design_json),
         cmocka_unit_test(test_design_example_round_trip),
+        cmocka_unit_test(test_design_docs_cover_keys),
     };
     return cmocka_run_group_tests(tests, setup, teardown);
 }
