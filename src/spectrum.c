@@ -9,8 +9,11 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <pthread.h>
+#include <unistd.h>
 
 #define MAX_CH 3
+#define MAX_THREADS 8
 
 /* Per analysed channel working state. */
 typedef struct work {
@@ -110,51 +113,126 @@ static inline size_t stencil(double pos, size_t n, double wt[4])
     return (size_t)k;
 }
 
-/* Resample every channel on the same grid t_a + j tau (j < M S), folding the
- * values into one period; also the sums of squares and of v * i. Channels
- * read without a shift share one stencil per point. */
-static double fold_pass(const tf_capture *cap, work *w, int nw, size_t M, size_t S,
-                        double step, int iv, int ii)
+/* One share of the fold pass: periods [m0, m1) into its own sums. */
+typedef struct fold_job {
+    const float *x[MAX_CH];
+    double pos0[MAX_CH];
+    int nw, iv, ii;
+    size_t n, m0, m1, S;
+    double step;
+    double *fold[MAX_CH];
+    double sumsq[MAX_CH], vi;
+} fold_job;
+
+/* Resample every channel on the grid t_a + j tau (j in the job's periods),
+ * folding the values into one period; also the sums of squares and of v * i.
+ * Channels read without a shift share one stencil per point. */
+static void *fold_run(void *arg)
 {
-    double vi = 0.0;
-    double val[MAX_CH];
-    int grp[MAX_CH];
-    double gpos[MAX_CH];
-    int ng = 0;
-    for (int c = 0; c < nw; c++) {
+    fold_job *J = arg;
+    int grp[MAX_CH], ng = 0;
+    double gpos[MAX_CH], val[MAX_CH];
+    for (int c = 0; c < J->nw; c++) {
         int g = 0;
-        while (g < ng && gpos[g] != w[c].pos0)
+        while (g < ng && gpos[g] != J->pos0[c])
             g++;
         if (g == ng)
-            gpos[ng++] = w[c].pos0;
+            gpos[ng++] = J->pos0[c];
         grp[c] = g;
     }
-    const size_t n = cap->n;
-    for (size_t m = 0; m < M; m++) {
+    const size_t n = J->n, S = J->S;
+    for (size_t m = J->m0; m < J->m1; m++) {
         double sq[MAX_CH] = {0}, pvi = 0.0;
         const size_t j0 = m * S;
         for (size_t s = 0; s < S; s++) {
-            const double dj = (double)(j0 + s) * step;
+            const double dj = (double)(j0 + s) * J->step;
             double wt[MAX_CH][4];
             size_t k[MAX_CH];
             for (int g = 0; g < ng; g++)
                 k[g] = stencil(gpos[g] + dj, n, wt[g]);
-            for (int c = 0; c < nw; c++) {
-                const float *p = w[c].x + k[grp[c]];
+            for (int c = 0; c < J->nw; c++) {
+                const float *p = J->x[c] + k[grp[c]];
                 const double *q = wt[grp[c]];
                 const double v = q[0] * p[0] + q[1] * p[1] + q[2] * p[2] + q[3] * p[3];
                 val[c] = v;
-                w[c].fold[s] += v;
+                J->fold[c][s] += v;
                 sq[c] += v * v;
             }
-            if (iv >= 0)
-                pvi += val[iv] * val[ii];
+            if (J->iv >= 0)
+                pvi += val[J->iv] * val[J->ii];
         }
-        for (int c = 0; c < nw; c++)
-            w[c].sumsq += sq[c];
-        vi += pvi;
+        for (int c = 0; c < J->nw; c++)
+            J->sumsq[c] += sq[c];
+        J->vi += pvi;
     }
-    return vi;
+    return NULL;
+}
+
+static int thread_count(int requested, size_t points)
+{
+    if (requested == 1 || points < ((size_t)1 << 20))
+        return 1;
+    if (requested > 1)
+        return requested > MAX_THREADS ? MAX_THREADS : requested;
+    const long cores = sysconf(_SC_NPROCESSORS_ONLN);
+    return cores >= 2 ? 2 : 1;
+}
+
+/* The fold pass over all M periods, split between threads by periods (each
+ * share folds into its own buffer; the shares are added in a fixed order, so
+ * a given thread count always gives the same result). Returns the sum of
+ * v * i, or NAN when out of memory. */
+static double fold_pass(const tf_capture *cap, work *w, int nw, size_t M, size_t S,
+                        double step, int iv, int ii, int threads)
+{
+    int T = thread_count(threads, M * S);
+    if ((size_t)T > M)
+        T = (int)M;
+    fold_job jobs[MAX_THREADS];
+    pthread_t tid[MAX_THREADS];
+    int started[MAX_THREADS] = {0};
+    memset(jobs, 0, sizeof jobs);
+    int ok = 1;
+    for (int t = 0; t < T; t++) {
+        fold_job *J = &jobs[t];
+        J->nw = nw;
+        J->iv = iv;
+        J->ii = ii;
+        J->n = cap->n;
+        J->S = S;
+        J->step = step;
+        J->m0 = M * (size_t)t / (size_t)T;
+        J->m1 = M * (size_t)(t + 1) / (size_t)T;
+        for (int c = 0; c < nw; c++) {
+            J->x[c] = w[c].x;
+            J->pos0[c] = w[c].pos0;
+            J->fold[c] = t == 0 ? w[c].fold : calloc(S, sizeof(double));
+            ok = ok && J->fold[c];
+        }
+    }
+    for (int t = 1; ok && t < T; t++)
+        started[t] = pthread_create(&tid[t], NULL, fold_run, &jobs[t]) == 0;
+    if (ok)
+        fold_run(&jobs[0]);
+    for (int t = 1; ok && t < T; t++) {
+        if (started[t])
+            pthread_join(tid[t], NULL);
+        else
+            fold_run(&jobs[t]); /* no thread: do its share here */
+    }
+    double vi = 0.0;
+    for (int t = 0; t < T; t++) {
+        for (int c = 0; c < nw; c++) {
+            if (t > 0 && ok)
+                for (size_t s = 0; s < S; s++)
+                    w[c].fold[s] += jobs[t].fold[c][s];
+            w[c].sumsq += jobs[t].sumsq[c];
+            if (t > 0)
+                free(jobs[t].fold[c]);
+        }
+        vi += jobs[t].vi;
+    }
+    return ok ? vi : NAN;
 }
 
 static void raw_peak(const tf_capture *cap, work *w, double last_pos)
@@ -322,6 +400,9 @@ static tf_status check_inputs(const tf_capture *cap, const tf_roles *roles,
         return tf_error_set(err, TF_ERR_USAGE,
                             "fundamental: expected a positive frequency, found %g",
                             opt->fundamental_hz);
+    if (opt->threads < 0 || opt->threads > MAX_THREADS)
+        return tf_error_set(err, TF_ERR_USAGE, "threads: expected 0..%d, found %d", MAX_THREADS,
+                            opt->threads);
     if (!isfinite(opt->skew_s) || fabs(opt->skew_s) >= 1e-3)
         return tf_error_set(err, TF_ERR_USAGE, "skew: expected |skew| < 1 ms, found %g s",
                             opt->skew_s);
@@ -514,7 +595,9 @@ static tf_status analyse(const tf_capture *cap, const tf_segment_result *seg,
             return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
     }
     const int power = iv >= 0 && ii >= 0;
-    const double vi = fold_pass(cap, w, nw, g.M, g.S, g.step, power ? iv : -1, ii);
+    const double vi = fold_pass(cap, w, nw, g.M, g.S, g.step, power ? iv : -1, ii, opt->threads);
+    if (isnan(vi))
+        return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
     double dc[MAX_CH], msq[MAX_CH];
     for (int c = 0; c < nw && st == TF_OK; c++) {
         raw_peak(cap, &w[c], w[c].pos0 + (double)(N - 1) * g.step);

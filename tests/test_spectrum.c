@@ -715,6 +715,36 @@ static void test_spectrum_simulator_skew(void **state)
     tf_capture_destroy(cap);
 }
 
+/* ---- threads ------------------------------------------------------------------------ */
+
+static void test_spectrum_threads_agree(void **state)
+{
+    (void)state;
+    /* 640 periods of 6 kHz at 10 MS/s: over 2^20 resampled points, so the fold
+     * pass is split between threads; the split only reorders sums */
+    tf_capture *cap = two_channel_capture(6e3, 9, 640, 0.0);
+    tf_roles roles = roles_of(0, 1, -1);
+    tf_spectrum_options o;
+    tf_spectrum_options_init(&o);
+    o.fundamental_hz = 6e3;
+    o.skew_s = 20e-9;
+    o.threads = 1;
+    tf_spectrum_result *a = run(cap, &roles, NULL, &o);
+    assert_true(a->periods * a->samples_per_period >= ((size_t)1 << 20));
+    o.threads = 3;
+    tf_spectrum_result *b = run(cap, &roles, NULL, &o);
+    for (int c = 0; c < 2; c++)
+        for (int h = 0; h < 9; h++)
+            assert_true(tf_test_reldiff(b->ch[c].harm[h].amplitude, a->ch[c].harm[h].amplitude) < 1e-12);
+    assert_true(tf_test_reldiff(b->power.mean_w, a->power.mean_w) < 1e-12);
+    assert_true(tf_test_reldiff(b->ch[0].rms, a->ch[0].rms) < 1e-12);
+    harmonic_signal v = test_voltage(6e3, 9);
+    assert_true(tf_test_reldiff(b->ch[1].harm[0].amplitude, v.amp[1]) < 1e-6);
+    tf_spectrum_free(a);
+    tf_spectrum_free(b);
+    tf_capture_destroy(cap);
+}
+
 /* ---- JSON --------------------------------------------------------------------------- */
 
 static void test_spectrum_json_keys(void **state)
@@ -822,6 +852,7 @@ int main(void)
         cmocka_unit_test(test_spectrum_power_and_skew),
         cmocka_unit_test(test_spectrum_simulator_power),
         cmocka_unit_test(test_spectrum_simulator_skew),
+        cmocka_unit_test(test_spectrum_threads_agree),
         cmocka_unit_test(test_spectrum_json_keys),
         cmocka_unit_test(test_spectrum_errors),
     };

@@ -25,6 +25,8 @@ typedef struct tf_spectrum_options {
     double skew_s;             /* voltage-to-current delay to correct before power: the
                                 * voltage channel shows v(t - skew_s) relative to the
                                 * current, so it is read at t + skew_s; |skew_s| < 1 ms */
+    int threads;               /* added: 0 = one per core (at most 2), 1..8 = that many;
+                                * windows under 2^20 points always use one */
 } tf_spectrum_options;
 
 typedef struct tf_harmonic {

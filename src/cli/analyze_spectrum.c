@@ -4,29 +4,14 @@
 #include <math.h>
 #include <string.h>
 
+#include <tankfit/siformat.h>
+
 #define DEFAULT_SHOW 10
 
 /* value with an SI prefix and 4 significant digits, e.g. "1.234 kW" */
 static const char *si(char *buf, size_t size, double v, const char *unit)
 {
-    static const char *const pre[] = {"p", "n", "u", "m", "", "k", "M", "G"};
-    if (!isfinite(v)) {
-        snprintf(buf, size, "-");
-        return buf;
-    }
-    int e = 4;
-    double a = fabs(v), s = v;
-    if (a > 0.0) {
-        int p3 = (int)floor(log10(a) / 3.0);
-        if (p3 < -4)
-            p3 = -4;
-        if (p3 > 3)
-            p3 = 3;
-        e = p3 + 4;
-        s = v / pow(10.0, 3.0 * p3);
-    }
-    snprintf(buf, size, "%.4g %s%s", s, pre[e], unit);
-    return buf;
+    return tf_si_format(buf, size, v, unit, 4);
 }
 
 static const char *unit_of(const tf_channel_spectrum *c)
@@ -72,8 +57,8 @@ static void print_power(FILE *out, const tf_spectrum_result *s, int nshow)
     }
     fprintf(out, "\nPower over the same %zu periods", s->periods);
     if (p->skew_s != 0.0)
-        fprintf(out, " (voltage read %s later to correct the probe skew)",
-                si(b, sizeof b, p->skew_s, "s"));
+        fprintf(out, " (voltage read %s %s to correct the probe skew)",
+                si(b, sizeof b, fabs(p->skew_s), "s"), p->skew_s > 0.0 ? "later" : "earlier");
     fputs("\n", out);
     fprintf(out, "  %-22s %14s\n", "mean power P", si(b, sizeof b, p->mean_w, "W"));
     fprintf(out, "  %-22s %14s\n", "V_rms", si(b, sizeof b, p->v_rms, "V"));

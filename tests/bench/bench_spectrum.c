@@ -76,6 +76,9 @@ int main(int argc, char **argv)
     printf("3 channels x %zu samples\n", n);
     time_run(cap, &roles, &o, "synchronous, fundamental given");
     time_run(cap, &roles, &o, "same again (plans cached)");
+    o.threads = 1;
+    time_run(cap, &roles, &o, "same, one thread");
+    o.threads = 0;
     o.fundamental_hz = 0.0;
     time_run(cap, &roles, &o, "synchronous, fundamental estimated");
     o.fundamental_hz = f;
