@@ -131,7 +131,7 @@ static int is_zero_kind(seg_bkind k) { return k == SEG_B_DEAD || k == SEG_B_TOUC
 
 /* Runs j..q form a chain of pieces sharing zeros (see seg_chain_fit): fit it and put
  * every boundary on the model. Returns 1 when done. */
-static int refine_chain(const seg_input *in, seg_run *r, size_t j, size_t q)
+static int refine_chain(const seg_input *in, seg_run *r, size_t j, size_t q, double prior[2])
 {
     size_t np = q - j + 1;
     double med = 0, lo = INFINITY, hi = 0;
@@ -147,10 +147,22 @@ static int refine_chain(const seg_input *in, seg_run *r, size_t j, size_t q)
     if (!nfull || hi > 1.2 * lo || r[j].i1 < r[j].i0 + 10)
         return 0;
     med /= (double)nfull;
-    double ts = r[j].t_start, w = M_PI / med, a = 0;
+    double ts = r[j].t_start, w = M_PI / med, a = 0, amp[64];
+    /* the tank changes slowly: the last chain's w and decay are the better priors */
+    if (prior[0] > 0 && fabs(prior[0] - w) < 0.03 * w) {
+        w = prior[0];
+        a = prior[1];
+    }
+    for (size_t p = j; p <= q; p++) {
+        /* amplitude from the lobe's peak, at a quarter period into its piece */
+        double tp = ((double)(p - j) + 0.5) * M_PI / w;
+        amp[p - j] = (double)r[p].pk * exp(a * tp) * r[j].sign; /* A_p sin(w tau) has the lobe sign */
+    }
     size_t k1 = r[q].k_end == SEG_B_EDGE ? r[q].i1 : r[q].i1 - 1;
-    if (seg_chain_fit(in->x, r[j].i0 + 1, k1, in->clips, in->nclips, np, &ts, &w, &a) != 0)
+    if (seg_chain_fit(in->x, r[j].i0 + 1, k1, in->clips, in->nclips, np, amp, &ts, &w, &a) != 0)
         return 0;
+    prior[0] = w;
+    prior[1] = a;
     double half = M_PI / w;
     for (size_t p = j; p <= q; p++) {
         double t0 = ts + (double)(p - j) * half, t1 = t0 + half;
@@ -172,6 +184,7 @@ static int refine_chain(const seg_input *in, seg_run *r, size_t j, size_t q)
 void seg_refine_boundaries(const seg_input *in, seg_vec *runs)
 {
     seg_run *r = runs->data;
+    double prior[2] = {0, 0};
     /* chains: from a lobe rising out of zero, through straight crossings, to a lobe
      * that returns to zero (or runs off the record) */
     for (size_t j = 0; j < runs->n; j++) {
@@ -181,7 +194,7 @@ void seg_refine_boundaries(const seg_input *in, seg_vec *runs)
         while (q + 1 < runs->n && r[q].k_end == SEG_B_DIRECT && q - j + 1 < 64)
             q++;
         if (q > j && (is_zero_kind(r[q].k_end) || r[q].k_end == SEG_B_EDGE) &&
-            refine_chain(in, r, j, q))
+            refine_chain(in, r, j, q, prior))
             j = q;
     }
     for (size_t j = 0; j < runs->n; j++) {

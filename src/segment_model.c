@@ -253,9 +253,11 @@ int seg_split_pieces(const float *x, size_t k0, size_t k1, double z0, double z1,
 
 #define CHAIN_MAX 64
 /* samples per piece used by the chain fit (stride chosen to keep about this many) */
-#define SEG_CHAIN_SAMPLES 4096
+#define SEG_CHAIN_SAMPLES 1000000
 
-/* Gauss-Newton pass quantities for the chain model (see seg_chain_fit). */
+/* One pass over the chain's samples: with linear_only the amplitudes alone (for fixed
+ * ts, w, a), else the Gauss-Newton step delta = (amplitudes, w, a, ts). Each sample
+ * touches one amplitude, so the normal matrix is accumulated per piece in locals. */
 static int chain_step(const float *x, size_t k0, size_t k1, size_t stride,
                       const seg_clip *clips, size_t nclips, size_t np, double ts, double w,
                       double a, double *amp, int linear_only, double *delta)
@@ -264,37 +266,61 @@ static int chain_step(const float *x, size_t k0, size_t k1, size_t stride,
     double jtj[(CHAIN_MAX + 3) * (CHAIN_MAX + 3)], jtr[CHAIN_MAX + 3];
     memset(jtj, 0, m * m * sizeof *jtj);
     memset(jtr, 0, m * sizeof *jtr);
-    double tau = (double)k0 - ts;
-    double e = exp(-a * tau), co = cos(w * tau), si = sin(w * tau);
-    const double st = (double)stride;
-    const double de = exp(-a * st), dc = cos(w * st), ds = sin(w * st), half = M_PI / w;
+    const double st = (double)stride, half = M_PI / w;
+    const double de = exp(-a * st), dc = cos(w * st), ds = sin(w * st);
+    double n00 = 0, n01 = 0, n02 = 0, n11 = 0, n12 = 0, n22 = 0, r0 = 0, r1 = 0, r2 = 0;
     size_t ci = 0, used = 0;
-    for (size_t k = k0; k <= k1; k += stride) {
-        while (ci < nclips && clips[ci].i1 < k)
-            ci++;
-        if (!(ci < nclips && clips[ci].i0 <= k) && tau > 0) {
-            long pl = (long)floor(tau / half);
-            size_t p = pl < 0 ? 0 : (size_t)pl >= np ? np - 1 : (size_t)pl;
-            double g = e * si, A = amp[p], v = x[k];
-            double r = v - A * g;
-            /* derivatives of A e^{-a tau} sin(w tau), tau = t - ts */
-            double jw = A * e * tau * co, ja = -A * tau * g, jt = A * e * (a * si - w * co);
-            double J[3] = {jw, ja, jt};
-            jtj[p * m + p] += g * g;
-            jtr[p] += (linear_only ? v : r) * g;
-            for (int q = 0; q < 3; q++) {
-                jtj[p * m + np + q] += g * J[q];
-                jtr[np + q] += r * J[q];
-                for (int s = 0; s < 3; s++)
-                    jtj[(np + q) * m + np + s] += J[q] * J[s];
+    for (size_t p = 0; p < np; p++) {
+        double lo = ts + (double)p * half, hi = p + 1 == np ? (double)k1 : lo + half;
+        double first = fmax((double)k0, floor(lo) + 1);
+        if (stride > 1)
+            first = (double)k0 + ceil((first - (double)k0) / st) * st;
+        if (first > hi || first > (double)k1)
+            continue;
+        double tau = first - ts, e = exp(-a * tau), co = cos(w * tau), si = sin(w * tau);
+        const double A = amp[p], aw = a, ww = w;
+        double gg = 0, gr = 0, g0 = 0, g1 = 0, g2 = 0;
+        for (double kd = first; kd <= hi && kd <= (double)k1; kd += st) {
+            size_t k = (size_t)kd;
+            while (ci < nclips && clips[ci].i1 < k)
+                ci++;
+            if (!(ci < nclips && clips[ci].i0 <= k)) {
+                double g = e * si, v = x[k];
+                if (linear_only) {
+                    gg += g * g;
+                    gr += v * g;
+                } else {
+                    double r = v - A * g;
+                    double jw = A * e * tau * co, ja = -A * tau * g,
+                           jt = A * e * (aw * si - ww * co);
+                    gg += g * g;
+                    gr += r * g;
+                    g0 += g * jw;
+                    g1 += g * ja;
+                    g2 += g * jt;
+                    n00 += jw * jw;
+                    n01 += jw * ja;
+                    n02 += jw * jt;
+                    n11 += ja * ja;
+                    n12 += ja * jt;
+                    n22 += jt * jt;
+                    r0 += r * jw;
+                    r1 += r * ja;
+                    r2 += r * jt;
+                }
+                used++;
             }
-            used++;
+            double nc = co * dc - si * ds;
+            si = si * dc + co * ds;
+            co = nc;
+            e *= de;
+            tau += st;
         }
-        double nc = co * dc - si * ds;
-        si = si * dc + co * ds;
-        co = nc;
-        e *= de;
-        tau += st;
+        jtj[p * m + p] = gg;
+        jtr[p] = gr;
+        jtj[p * m + np] = jtj[np * m + p] = g0;
+        jtj[p * m + np + 1] = jtj[(np + 1) * m + p] = g1;
+        jtj[p * m + np + 2] = jtj[(np + 2) * m + p] = g2;
     }
     if (used < 4 * m)
         return -1;
@@ -306,14 +332,18 @@ static int chain_step(const float *x, size_t k0, size_t k1, size_t stride,
         }
         return 0;
     }
-    for (size_t i = 0; i < m; i++)
-        for (size_t j = 0; j < i; j++)
-            jtj[i * m + j] = jtj[j * m + i];
+    double nn[6] = {n00, n01, n02, n11, n12, n22}, rr[3] = {r0, r1, r2};
+    const int idx[3][3] = {{0, 1, 2}, {1, 3, 4}, {2, 4, 5}};
+    for (int q = 0; q < 3; q++) {
+        jtr[np + q] = rr[q];
+        for (int t = 0; t < 3; t++)
+            jtj[(np + q) * m + np + t] = nn[idx[q][t]];
+    }
     return spd_solve(jtj, jtr, delta, m);
 }
 
 int seg_chain_fit(const float *x, size_t k0, size_t k1, const seg_clip *clips, size_t nclips,
-                  size_t np, double *ts, double *w, double *a)
+                  size_t np, const double *amp0, double *ts, double *w, double *a)
 {
     if (np < 1 || np > CHAIN_MAX || k1 <= k0 + 16 || !(*w > 0))
         return -1;
@@ -322,7 +352,9 @@ int seg_chain_fit(const float *x, size_t k0, size_t k1, const seg_clip *clips, s
     /* a few hundred samples per piece hold nearly all the timing information: keep the
      * cost per burst bounded on heavily oversampled records (docs/segmenter.md) */
     size_t per = (size_t)(M_PI / ww), stride = per / SEG_CHAIN_SAMPLES + 1;
-    if (chain_step(x, k0, k1, stride, clips, nclips, np, t, ww, aa, amp, 1, d) != 0)
+    if (amp0)
+        memcpy(amp, amp0, np * sizeof *amp);
+    else if (chain_step(x, k0, k1, stride, clips, nclips, np, t, ww, aa, amp, 1, d) != 0)
         return -1;
     for (int it = 0; it < 8; it++) {
         if (chain_step(x, k0, k1, stride, clips, nclips, np, t, ww, aa, amp, 0, d) != 0)
@@ -336,7 +368,7 @@ int seg_chain_fit(const float *x, size_t k0, size_t k1, const seg_clip *clips, s
         ww += dw;
         aa += da;
         t += dts;
-        if (fabs(dts) < 1e-3 && fabs(dw) < 1e-7 * ww)
+        if (fabs(dts) < 1e-2 && fabs(dw) < 1e-6 * ww)
             break;
     }
     if (!(ww > 0) || !isfinite(t))

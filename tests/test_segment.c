@@ -131,7 +131,7 @@ static void check_turnoff(const segw_out *w, const tf_segment_result *r, double 
 static void expect_all(const segw_out *w, const tf_segment_result *r, double tol_s)
 {
     match_stats m = match(w, r, 2e-6);
-    if (m.found != m.truth || m.attributed != m.truth || m.max_err_s > tol_s)
+    if (getenv("SEG_ERR") || m.found != m.truth || m.attributed != m.truth || m.max_err_s > tol_s)
         fprintf(stderr, "truth %zu found %zu attributed %zu max err %.3g s (tol %.3g)\n",
                 m.truth, m.found, m.attributed, m.max_err_s, tol_s);
     assert_true(m.truth >= 4);
