@@ -81,6 +81,8 @@ static void print_layout(const tf_capture *cap)
         else
             printf("header       none\n");
         printf("metadata     %zu line%s\n", d->metadata_lines, d->metadata_lines == 1 ? "" : "s");
+        for (size_t k = 0; k < cap->nmeta; k++)
+            printf("             %s\n", cap->metadata[k]);
         printf("line end     %s, byte-order mark %s\n", d->line_end[0] ? d->line_end : "?",
                yes_no(d->has_bom));
         if (d->time_column >= 0)
@@ -90,9 +92,9 @@ static void print_layout(const tf_capture *cap)
             printf("time column  none\n");
     } else {
         printf("format       %s, %s\n", d->format, d->wav_subformat[0] ? d->wav_subformat : "?");
+        for (size_t k = 0; k < cap->nmeta; k++)
+            printf("%-12s %s\n", k ? "" : "metadata", cap->metadata[k]);
     }
-    for (size_t k = 0; k < cap->nmeta; k++)
-        printf("%-12s %s\n", k ? "" : "metadata", cap->metadata[k]);
     printf("samples      %zu\n", cap->n);
     printf("sample rate  %s (dt %s)\n", tf_si_format(a, sizeof a, 1.0 / cap->dt_s, "Hz", 6),
            tf_si_format(b, sizeof b, cap->dt_s, "s", 6));
