@@ -328,29 +328,46 @@ static int disagree(const tf_estimate *a, const tf_estimate *b)
     return fabs(a->value - b->value) > 2.0 * u && fabs(a->value - b->value) > floor_rel;
 }
 
+static void ringdown_pair(tf_fit_result *r, const tf_estimate *o, int c_given, int l_given,
+                          const char *clip)
+{
+    char t[256];
+    if (!disagree(&r->ringdown_r, o))
+        return;
+    const char *cause;
+    if (!r->drops_modelled && r->ringdown_r.value > o->value)
+        cause = "device drops not modelled (give thyristor_drop and diode_drop)";
+    else if (c_given)
+        cause = "the given capacitance may be wrong (ring-down R scales with 1/C)";
+    else if (l_given)
+        cause = "the given inductance may be wrong (ring-down R scales with L)";
+    else
+        cause = "a model assumption";
+    snprintf(t, sizeof t, "ring-down R %.4g ohm and %s R %.4g ohm differ beyond their uncertainty; likely cause: %s%s",
+             r->ringdown_r.value, o->method, o->value, cause, clip);
+    add_warning(r, t);
+}
+
 static void agreement(tf_fit_result *r, int c_given, int l_given)
 {
     char t[256];
     const char *clip = r->bursts_clipped ? " (some bursts were clipped: check the probe range)" : "";
-    if (disagree(&r->ringdown_r, &r->vi_r) || disagree(&r->ringdown_r, &r->power_r)) {
-        const tf_estimate *o = isfinite(r->vi_r.value) ? &r->vi_r : &r->power_r;
-        const char *cause;
-        if (!r->drops_modelled && r->ringdown_r.value > o->value)
-            cause = "device drops not modelled (give thyristor_drop and diode_drop)";
-        else if (c_given)
-            cause = "the given capacitance may be wrong (ring-down R scales with 1/C)";
-        else if (l_given)
-            cause = "the given inductance may be wrong (ring-down R scales with L)";
-        else
-            cause = "a model assumption";
-        snprintf(t, sizeof t, "ring-down R %.4g ohm and %s R %.4g ohm differ beyond their uncertainty; likely cause: %s%s",
-                 r->ringdown_r.value, o->method, o->value, cause, clip);
-        add_warning(r, t);
-    }
-    if (disagree(&r->vi_r, &r->power_r)) {
-        snprintf(t, sizeof t, "v-i R %.4g ohm and power R %.4g ohm differ beyond their uncertainty; likely cause: probe skew (check --skew)%s",
-                 r->vi_r.value, r->power_r.value, clip);
-        add_warning(r, t);
+    /* the power method averages over the whole capture, weighted by i^2: when R moves
+     * between bursts (a heating run) it is not comparable with the burst median */
+    const tf_fit_spread *sp = &r->s_resistance_ohm;
+    const int varies = sp->count > 2 && sp->max - sp->min > 0.04 * fabs(sp->median) &&
+                       sp->spread > 0.01 * fabs(sp->median);
+    ringdown_pair(r, &r->vi_r, c_given, l_given, clip);
+    if (isfinite(r->power_r.value) && varies) {
+        add_note(r, "%s", "R varies between bursts: the power method's whole-capture average is "
+                          "not compared (see tankfit track)");
+    } else {
+        ringdown_pair(r, &r->power_r, c_given, l_given, clip);
+        if (disagree(&r->vi_r, &r->power_r)) {
+            snprintf(t, sizeof t, "v-i R %.4g ohm and power R %.4g ohm differ beyond their uncertainty; likely cause: probe skew (check --skew)%s",
+                     r->vi_r.value, r->power_r.value, clip);
+            add_warning(r, t);
+        }
     }
     if (disagree(&r->ringdown_l, &r->vi_l)) {
         snprintf(t, sizeof t, "ring-down L %.4g H and v-i L %.4g H differ beyond their uncertainty; likely cause: the given capacitance is wrong",
