@@ -162,6 +162,10 @@ void tf__channels(const tf_synth *s, const tf_seg *g, const double x[3], double 
 /* Device of a conduction state. */
 tf_device tf__device(const tf_synth *s, int cs);
 
+/* The truth; force_quadrature computes every integral by Gauss-Legendre panels (tests
+ * compare it with the closed forms). */
+json_t *tf__truth(tf_synth *s, int force_quadrature, tf_error *err);
+
 /* Truth accumulation hook: called once per completed segment (synth_truth.c). */
 void tf__accum_segment(tf_synth *s, const tf_seg *g);
 

@@ -890,10 +890,68 @@ static void test_synth_truth_harmonics_numpy(void **state)
     free(d);
 }
 
+/* The closed-form interval integrals of the truth agree with brute Gauss-Legendre
+ * quadrature of the same waveform (two independent ways to the same integrals). */
+static void compare_truth_methods(tf_design *d)
+{
+    tf_synth *s = make(d);
+    tf_error e;
+    json_t *a = tf__truth(s, 0, &e), *b = tf__truth(s, 1, &e);
+    assert_non_null(a);
+    assert_non_null(b);
+    json_t *ra = json_object_get(a, "rms"), *rb = json_object_get(b, "rms");
+    const char *key;
+    json_t *v;
+    json_object_foreach(ra, key, v) {
+        double x = json_real_value(v), y = json_real_value(json_object_get(rb, key));
+        if (!(tf_test_reldiff(x, y) < 1e-10))
+            fail_msg("rms %s: %.15g vs %.15g", key, x, y);
+    }
+    double pa = json_real_value(json_object_get(json_object_get(a, "power"), "mean_w"));
+    double pb = json_real_value(json_object_get(json_object_get(b, "power"), "mean_w"));
+    assert_true(tf_test_reldiff(pa, pb) < 1e-10);
+    const char *names[2] = {"i_load", "v_out"};
+    for (int c = 0; c < 2; c++) {
+        json_t *ha = json_object_get(json_object_get(a, "harmonics"), names[c]);
+        json_t *hb = json_object_get(json_object_get(b, "harmonics"), names[c]);
+        json_t *xa = json_object_get(ha, "amplitude"), *xb = json_object_get(hb, "amplitude");
+        double a1 = json_real_value(json_array_get(xb, 0));
+        for (size_t n = 0; n < 40; n++) {
+            double x = json_real_value(json_array_get(xa, n));
+            double y = json_real_value(json_array_get(xb, n));
+            if (!(fabs(x - y) < 1e-10 * a1))
+                fail_msg("%s harmonic %zu: %.15g vs %.15g", names[c], n + 1, x, y);
+        }
+        double da = json_real_value(json_object_get(ha, "dc"));
+        double db = json_real_value(json_object_get(hb, "dc"));
+        assert_true(fabs(da - db) < 1e-10 * a1);
+    }
+    json_decref(a);
+    json_decref(b);
+    tf_synth_destroy(s);
+}
+
+static void test_synth_truth_closed_form_vs_quadrature(void **state)
+{
+    (void)state;
+    tf_design *d = design_new(TF_TOPO_HALF_BRIDGE);
+    d->stray_inductance_h = 1e-6;
+    d->start_s = 0.13e-3;
+    d->duration_s = 1.1e-3;
+    compare_truth_methods(d);
+    d->firing_frequency_hz = 9000;
+    d->split_capacitor = 1;
+    compare_truth_methods(d);
+    d->topology = TF_TOPO_FULL_BRIDGE;
+    compare_truth_methods(d);
+    free(d);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_synth_truth_harmonics_numpy),
+        cmocka_unit_test(test_synth_truth_closed_form_vs_quadrature),
         cmocka_unit_test(test_synth_first_lobe_textbook),
         cmocka_unit_test(test_synth_half_bridge_sequence),
         cmocka_unit_test(test_synth_energy_balance),
