@@ -67,24 +67,83 @@ static void major_name(int format, char *out, size_t size)
         snprintf(out, size, "sound");
 }
 
-/* libsndfile opens a file cut short and quietly shrinks the data chunk; its
- * log then says "data : N (should be M)". Returns the declared size or -1. */
-static long long declared_data_cut(SNDFILE *sf)
+/* Bytes per sample of the PCM and float subformats; 0 for others. */
+static int sample_bytes(int format)
+{
+    switch (format & SF_FORMAT_SUBMASK) {
+    case SF_FORMAT_PCM_S8: case SF_FORMAT_PCM_U8: case SF_FORMAT_ULAW: case SF_FORMAT_ALAW:
+        return 1;
+    case SF_FORMAT_PCM_16: return 2;
+    case SF_FORMAT_PCM_24: return 3;
+    case SF_FORMAT_PCM_32: case SF_FORMAT_FLOAT: return 4;
+    case SF_FORMAT_DOUBLE: return 8;
+    default: return 0;
+    }
+}
+
+/* Value after "KEY :" at the start of a log line (leading spaces allowed), or -1. */
+static long long log_value(const char *line, const char *key)
+{
+    while (*line == ' ')
+        line++;
+    size_t kl = strlen(key);
+    if (strncmp(line, key, kl) != 0)
+        return -1;
+    line += kl;
+    while (*line == ' ')
+        line++;
+    if (*line != ':')
+        return -1;
+    line++;
+    while (*line == ' ')
+        line++;
+    if (line[0] < '0' || line[0] > '9' || (line[0] == '0' && line[1] == 'x'))
+        return -1;
+    return strtoll(line, NULL, 10);
+}
+
+/* libsndfile opens a file cut short and quietly shortens its data: the log
+ * then says "data : N (should be M)" (WAV), "Calculated frame count ... does
+ * not match" (RF64), or declares more data bytes than the frames it reports
+ * (W64). Returns the number of data bytes declared when the file is cut,
+ * 0 when it is cut but the size is unknown, -1 when it looks whole. */
+static long long declared_data_cut(SNDFILE *sf, const SF_INFO *info)
 {
     char log[8192];
+    long long declared = -1;
+    int cut = 0;
     log[0] = '\0';
     sf_command(sf, SFC_GET_LOG_INFO, log, sizeof log);
-    for (const char *p = log; p && *p; p = strchr(p, '\n') ? strchr(p, '\n') + 1 : NULL) {
-        if (strncmp(p, "data", 4) != 0)
-            continue;
-        const char *nl = strchr(p, '\n');
+    for (char *p = log; p && *p;) {
+        char *nl = strchr(p, '\n');
+        if (nl)
+            *nl = '\0';
+        long long v = log_value(p, "data");
+        if (v < 0)
+            v = log_value(p, "Data size");
+        if (v >= 0 && declared < 0)
+            declared = v;
+        /* "should be" a smaller size means cut; a larger one is a writer that
+         * left the size unset (streaming), and libsndfile reads what is there */
         const char *sb = strstr(p, "(should be");
-        if (sb && (!nl || sb < nl)) {
-            const char *colon = strchr(p, ':');
-            return colon ? strtoll(colon + 1, NULL, 10) : 0;
-        }
+        if (log_value(p, "data") >= 0 && sb && strtoll(sb + 10, NULL, 10) < log_value(p, "data"))
+            cut = 1;
+        if (strstr(p, "frame count") && strstr(p, "does not match"))
+            cut = 1;
+        p = nl ? nl + 1 : NULL;
     }
-    return -1;
+    int bytes = sample_bytes(info->format);
+    if (!cut && declared > 0 && bytes > 0) {
+        long long align = (long long)bytes * info->channels;
+        long long payload = declared;
+        if ((info->format & SF_FORMAT_TYPEMASK) == SF_FORMAT_W64)
+            payload -= 24; /* a W64 chunk size counts its 24-byte header */
+        if (payload > (long long)info->frames * align + align)
+            cut = 1;
+    }
+    if (!cut)
+        return -1;
+    return declared > 0 ? declared : 0;
 }
 
 static void channel_list(const wav_chan *ch, size_t n, char *out, size_t size)
@@ -405,10 +464,16 @@ tf_status tf_import_wav(const char *path, const tf_import_options *opt, tf_captu
     tf_status st = open_sound(path, &sf, &info, err);
     if (st != TF_OK)
         return st;
-    long long cut = declared_data_cut(sf);
-    if (cut >= 0) {
+    long long cut = declared_data_cut(sf, &info);
+    if (cut > 0) {
         st = tf_error_set(err, TF_ERR_DATA, "%s: truncated: the data chunk declares %lld bytes, "
                           "the file ends before (libsndfile read %lld frames)", path, cut,
+                          (long long)info.frames);
+        goto done;
+    }
+    if (cut == 0) {
+        st = tf_error_set(err, TF_ERR_DATA, "%s: truncated: the header declares more frames "
+                          "than the file holds (libsndfile read %lld frames)", path,
                           (long long)info.frames);
         goto done;
     }

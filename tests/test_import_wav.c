@@ -381,6 +381,24 @@ static void test_import_wav_bad_files(void **state)
     write_bytes(half, bytes, len / 2 + 1);
     free(bytes);
     assert_non_null(strstr(load_fail(half, NULL, TF_ERR_DATA), "truncated"));
+    /* W64 (SoX) and RF64 (libsndfile) cut in the middle: libsndfile shortens
+     * them quietly, the importer must refuse them */
+    const char *w64 = sox("whole.w64", "-r 8000 -c 1 -b 16 synth 0.5 sine 100");
+    const char *rf64 = tf_test_tmpfile("whole.rf64");
+    convert(whole, rf64, SF_FORMAT_RF64 | SF_FORMAT_PCM_16);
+    const char *src[2] = {w64, rf64}, *dst[2] = {"half.w64", "half.rf64"};
+    for (int k = 0; k < 2; k++) {
+        bytes = tf_test_slurp(src[k], &len);
+        assert_non_null(bytes);
+        const char *p = tf_test_tmpfile(dst[k]);
+        write_bytes(p, bytes, len / 2);
+        free(bytes);
+        m = load_fail(p, NULL, TF_ERR_DATA);
+        assert_non_null(strstr(m, "truncated: the data chunk declares 8"));
+        tf_capture *cap = load(src[k], NULL); /* the whole files are fine */
+        assert_int_equal(cap->n, 4000);
+        tf_capture_destroy(cap);
+    }
     /* no frames at all */
     const char *empty = tf_test_tmpfile("empty.wav");
     wav_header(buf, 1, 8000, 0);
