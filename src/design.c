@@ -235,7 +235,7 @@ static char *reader(char *str, int num, void *stream)
     /* inih would split a longer line silently; its buffer holds num - 1 bytes
      * with the line ending */
     if (content + 3 > (size_t)num || n >= sizeof st->raw)
-        return fail(st, 0, "line is longer than %d characters; split a long list or "
+        return fail(st, 0, "line is longer than %d bytes; split a long list or "
                     "notes over indented continuation lines",
                     (int)((size_t)num < sizeof st->raw ? num : (int)sizeof st->raw) - 3),
                NULL;
