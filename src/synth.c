@@ -278,13 +278,17 @@ static void add_failure(tf_synth *s, double t, int pos, int kind, double toff)
         s->shoot_through_s = t;
 }
 
+static double interp_sched(const tf_synth *s, const double *vals, double t, double nominal);
+
 static void open_interval(tf_synth *s, int cs, double t)
 {
     tf_synth_interval *v = grow(s->iv, &s->cap_iv, s->niv + 1, sizeof *v, &s->nomem);
     if (!v)
         return;
     s->iv = v;
-    v[s->niv++] = (tf_synth_interval){tf__device(s, cs), t, NAN, t, 0.0};
+    v[s->niv++] = (tf_synth_interval){tf__device(s, cs), t, NAN, t, 0.0,
+                                      interp_sched(s, s->d.sched_r_ohm, t, s->R),
+                                      interp_sched(s, s->d.sched_l_h, t, s->L)};
     s->iv_open = 1;
 }
 

@@ -292,6 +292,10 @@ static json_t *build_json(tf_synth *r, const tf_synth_accum *A)
         json_object_set_new(e, "end_s", num(v->end_s));
         json_object_set_new(e, "peak_s", json_real(v->peak_s));
         json_object_set_new(e, "peak_a", json_real(v->peak_a));
+        if (d->nschedule) {
+            json_object_set_new(e, "resistance_ohm", json_real(v->r_ohm));
+            json_object_set_new(e, "inductance_h", json_real(v->l_h));
+        }
         json_array_append_new(ivs, e);
         if (v->start_s >= A->ws && fabs(v->peak_a) > ipk)
             ipk = fabs(v->peak_a);

@@ -804,6 +804,9 @@ static void test_synth_explicit_firings_and_schedule(void **state)
     assert_true(tf_test_reldiff(iv[2].end_s - iv[2].start_s, M_PI / wd1) < 1e-9);
     assert_int_equal(iv[6].device, TF_DEV_T2);
     assert_true(tf_test_reldiff(iv[6].end_s - iv[6].start_s, M_PI / wd2) < 1e-9);
+    assert_true(tf_test_reldiff(iv[2].l_h, L1) < 1e-12);
+    assert_true(tf_test_reldiff(iv[6].l_h, L2) < 1e-12);
+    assert_true(tf_test_reldiff(iv[6].r_ohm, R) < 1e-12);
     tf_synth_destroy(s);
     free(d);
 }

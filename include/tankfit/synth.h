@@ -17,6 +17,8 @@ typedef struct tf_synth_interval {
     tf_device device;
     double start_s, end_s;
     double peak_s, peak_a;       /* signed peak current within the interval */
+    double r_ohm, l_h;           /* tank resistance and inductance in force at its start
+                                  * ([tank] values, or the [schedule] at that time) */
 } tf_synth_interval;
 
 /* Opaque engine. */
@@ -81,8 +83,8 @@ typedef struct tf_synth_point {
 } tf_synth_point;
 
 /* Evaluate at time t (seconds). t must not be earlier than about 1 ms before the
- * t0 of the last fill (history is short); evaluation moves the simulation forward
- * as needed. Errors: TF_ERR_USAGE (t too early or not finite), TF_ERR_NOMEM. */
+ * t0 of the last fill or the latest evaluated time (history is short); evaluation
+ * moves the simulation forward as needed. Errors: TF_ERR_USAGE (t too early or not finite), TF_ERR_NOMEM. */
 tf_status tf_synth_eval(tf_synth *s, double t, tf_synth_point *p, tf_error *err);
 
 #ifdef __cplusplus
