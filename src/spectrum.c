@@ -1,6 +1,7 @@
 /* Synchronous harmonic analysis and power over whole periods: choose M periods, resample
  * to S points per period (cubic), fold, one S-point FFT per channel (docs/spectrum.md). */
 #include <tankfit/spectrum.h>
+#include <tankfit/stats.h>
 
 #include "spectrum_internal.h"
 
@@ -479,6 +480,14 @@ static tf_status fill_channel(const tf_capture *cap, const work *w, const work *
     const double ap = rms * rms - msq_periodic;
     cs->aperiodic_rms = ap > 0.0 ? sqrt(ap) : 0.0;
     cs->shift_s = w->shift_s;
+    const tf_channel *ch = &cap->ch[w->idx];
+    if (ch->stats_valid) {
+        cs->clipped_samples = ch->stats.clipped_samples;
+    } else {
+        tf_channel_stats st;
+        tf_stats_compute(ch->samples, cap->n, &st);
+        cs->clipped_samples = st.clipped_samples;
+    }
     return TF_OK;
 }
 

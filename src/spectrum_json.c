@@ -32,6 +32,7 @@ static json_t *channel_json(const tf_channel_spectrum *c)
     json_object_set_new(o, "peak", num(c->peak));
     json_object_set_new(o, "aperiodic_rms", num(c->aperiodic_rms));
     json_object_set_new(o, "shift_s", num(c->shift_s));
+    json_object_set_new(o, "clipped_samples", json_integer((json_int_t)c->clipped_samples));
     return o;
 }
 

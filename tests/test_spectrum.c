@@ -792,6 +792,40 @@ static void test_spectrum_json_keys(void **state)
     tf_capture_destroy(cap);
 }
 
+/* ---- clipping ----------------------------------------------------------------------- */
+
+static void test_spectrum_clipped_flag(void **state)
+{
+    (void)state;
+    tf_capture *cap = two_channel_capture(6e3, 3, 10, 0.0);
+    tf_roles roles = roles_of(0, 1, -1);
+    tf_spectrum_result *r = run(cap, &roles, NULL, NULL);
+    assert_int_equal(r->ch[0].clipped_samples, 0);
+    assert_int_equal(r->ch[1].clipped_samples, 0);
+    tf_spectrum_free(r);
+    /* the current probe's range cuts the peaks: long runs at the extreme code
+     * (common practice: a run at the range limit much longer than its
+     * neighbours is clipping; the rule of tf_stats_compute) */
+    float lim = 0.0f;
+    for (size_t k = 0; k < cap->n; k++)
+        lim = fmaxf(lim, fabsf(cap->ch[0].samples[k]));
+    lim *= 0.8f;
+    for (size_t k = 0; k < cap->n; k++)
+        cap->ch[0].samples[k] = fminf(lim, fmaxf(-lim, cap->ch[0].samples[k]));
+    r = run(cap, &roles, NULL, NULL);
+    assert_true(r->ch[0].clipped_samples > 100);
+    assert_int_equal(r->ch[1].clipped_samples, 0);
+    json_t *o = json_object();
+    tf_spectrum_to_json(r, o);
+    json_t *cur = json_object_get(json_object_get(json_object_get(o, "spectrum"), "channels"),
+                                  "current");
+    assert_int_equal(json_integer_value(json_object_get(cur, "clipped_samples")),
+                     (json_int_t)r->ch[0].clipped_samples);
+    json_decref(o);
+    tf_spectrum_free(r);
+    tf_capture_destroy(cap);
+}
+
 /* ---- errors ------------------------------------------------------------------------- */
 
 static void test_spectrum_errors(void **state)
@@ -854,6 +888,7 @@ int main(void)
         cmocka_unit_test(test_spectrum_simulator_skew),
         cmocka_unit_test(test_spectrum_threads_agree),
         cmocka_unit_test(test_spectrum_json_keys),
+        cmocka_unit_test(test_spectrum_clipped_flag),
         cmocka_unit_test(test_spectrum_errors),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);

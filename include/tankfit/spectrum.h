@@ -52,6 +52,9 @@ typedef struct tf_channel_spectrum {
                                 * between the harmonics: drift, noise, wrong frequency) */
     double shift_s;            /* time shift applied when reading it (skew_s for the
                                 * voltage, 0 otherwise) */
+    size_t clipped_samples;    /* samples in runs at the channel's extreme codes (from the
+                                * capture's stats, computed when not yet valid): when
+                                * non-zero, amplitudes, THD and power are not trusted */
 } tf_channel_spectrum;
 
 /* Power of one harmonic: V_h,rms I_h,rms cos(phi_V,h - phi_I,h). */

@@ -26,6 +26,10 @@ static void print_channel(FILE *out, const tf_channel_spectrum *c, int H, int ns
             c->unit[0] ? " [" : "", c->unit, c->unit[0] ? "]" : "",
             si(b1, sizeof b1, c->dc, unit_of(c)), si(b2, sizeof b2, c->rms, unit_of(c)),
             c->crest_factor);
+    if (c->clipped_samples > 0)
+        fprintf(out, "  WARNING: %zu samples clipped at the vertical range: amplitudes, THD "
+                     "and power from this channel are not trusted\n",
+                c->clipped_samples);
     if (isfinite(c->thd))
         fprintf(out, "  THD %.3f %% of the fundamental over harmonics 2..%d\n", 100.0 * c->thd, H);
     else
@@ -55,6 +59,10 @@ static void print_power(FILE *out, const tf_spectrum_result *s, int nshow)
         fputs("\nPower: needs both a current and an output-voltage channel\n", out);
         return;
     }
+    for (size_t c = 0; c < s->nch; c++)
+        if (s->ch[c].clipped_samples > 0 && strcmp(s->ch[c].role, "cap_voltage") != 0)
+            fprintf(out, "\nWARNING: '%s' is clipped: the power below is not trusted",
+                    s->ch[c].name);
     fprintf(out, "\nPower over the same %zu periods", s->periods);
     if (p->skew_s != 0.0)
         fprintf(out, " (voltage read %s %s to correct the probe skew)",
