@@ -57,6 +57,12 @@ static double wrap_deg(double rad)
     return d;
 }
 
+static int cmp_double(const void *a, const void *b)
+{
+    const double x = *(const double *)a, y = *(const double *)b;
+    return (x > y) - (x < y);
+}
+
 /* The fundamental and where it came from. */
 static tf_status pick_fundamental(const tf_capture *cap, const tf_segment_result *seg,
                                   const tf_spectrum_options *opt, int ref, double *f,
@@ -68,13 +74,25 @@ static tf_status pick_fundamental(const tf_capture *cap, const tf_segment_result
         return TF_OK;
     }
     if (seg && seg->ncycles > 0) {
+        /* mean of the periods within 5 % of their median: a missing firing
+         * makes one period twice as long and must not bias the rest */
+        double *p = malloc(sizeof(double) * seg->ncycles);
+        size_t np = 0;
+        for (size_t c = 0; p && c < seg->ncycles; c++)
+            if (isfinite(seg->cycles[c].period_s) && seg->cycles[c].period_s > 0.0)
+                p[np++] = seg->cycles[c].period_s;
         double sum = 0.0;
         size_t k = 0;
-        for (size_t c = 0; c < seg->ncycles; c++)
-            if (isfinite(seg->cycles[c].period_s) && seg->cycles[c].period_s > 0.0) {
-                sum += seg->cycles[c].period_s;
-                k++;
-            }
+        if (np > 0) {
+            qsort(p, np, sizeof *p, cmp_double);
+            const double med = np % 2 ? p[np / 2] : 0.5 * (p[np / 2 - 1] + p[np / 2]);
+            for (size_t c = 0; c < np; c++)
+                if (fabs(p[c] - med) <= 0.05 * med) {
+                    sum += p[c];
+                    k++;
+                }
+        }
+        free(p);
         if (k > 0) {
             *f = (double)k / sum;
             strcpy(source, "segmenter");
@@ -326,9 +344,12 @@ static tf_status hann_phasors(const tf_capture *cap, work *w, double t_a, size_t
     tf_sp_hann_apply(buf, L);
     fftw_execute_dft_r2c(plan, buf, X);
     const double dt = cap->dt_s, tk0 = tf_capture_time(cap, (size_t)k0);
+    /* harmonics lie f L dt bins apart: search at most a third of that around each */
+    const double spacing = f * (double)L * dt;
+    const int search = spacing >= 6.0 ? 2 : (spacing >= 3.0 ? 1 : 0);
     for (int h = 1; h <= H; h++) {
         double nu, amp, phase;
-        if (tf_sp_hann_peak(X, L, h * f * (double)L * dt, 2, &nu, &amp, &phase) != 0) {
+        if (tf_sp_hann_peak(X, L, h * f * (double)L * dt, search, &nu, &amp, &phase) != 0) {
             nu = h * f * (double)L * dt;
             amp = 0.0;
             phase = 0.0;
@@ -342,12 +363,6 @@ static tf_status hann_phasors(const tf_capture *cap, work *w, double t_a, size_t
     fftw_free(buf);
     fftw_free(X);
     return TF_OK;
-}
-
-static int cmp_double(const void *a, const void *b)
-{
-    const double x = *(const double *)a, y = *(const double *)b;
-    return (x > y) - (x < y);
 }
 
 /* Integral of v(t + skew) i(t) over each complete firing cycle, on the current's

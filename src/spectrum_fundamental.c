@@ -148,8 +148,11 @@ static int gauss_newton(const double *y, size_t m, int H, double *w, double *coe
 tf_status tf_spectrum_estimate_fundamental(const float *x, size_t n, double dt_s,
                                            double *freq_hz, tf_error *err)
 {
-    if (!x || n < 16 || !(dt_s > 0.0) || !freq_hz)
-        return tf_error_set(err, TF_ERR_USAGE, "fundamental estimate: need at least 16 samples");
+    if (!x || !(dt_s > 0.0) || !freq_hz)
+        return tf_error_set(err, TF_ERR_USAGE, "fundamental estimate: no samples given");
+    if (n < 16)
+        return tf_error_set(err, TF_ERR_DATA,
+                            "fundamental estimate: %zu samples, at least 16 are needed", n);
     size_t D = (n + FIT_POINTS_MAX - 1) / FIT_POINTS_MAX;
     size_t m = n / D;
     double *y = malloc(sizeof(double) * m);

@@ -480,6 +480,12 @@ static void test_spectrum_segmenter_fundamental(void **state)
     tf_spectrum_result *r = run(cap, &roles, &seg, NULL);
     assert_string_equal(r->fundamental_source, "segmenter");
     assert_true(tf_test_reldiff(r->fundamental_hz, f) < 1e-12);
+    tf_spectrum_free(r);
+    /* a missing firing doubles one period: it must not bias the fundamental */
+    cycles[3].period_s = 2.0 / f;
+    r = run(cap, &roles, &seg, NULL);
+    assert_true(tf_test_reldiff(r->fundamental_hz, f) < 1e-12);
+    cycles[3].period_s = 1.0 / f;
     /* energy of each cycle = P / f for a stationary signal; rectangle rule over
      * 1667 samples, ends rounded to whole samples (source: AC power theory) */
     assert_int_equal(r->power.cycles, 7);
