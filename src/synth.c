@@ -1,6 +1,7 @@
 /* Simulator engine: devices, firing schedule and events of a series resonant stage. */
 #include "synth_engine.h"
 
+#include <gsl/gsl_eigen.h>
 #include <math.h>
 #include <stdlib.h>
 #include <string.h>
@@ -472,6 +473,7 @@ static void build_segment(tf_synth *s, tf_seg *g, double t0, int cs, const doubl
         g->xp[1] = Rr * E / (R + Rr);
         g->model = TF_MODEL_TANK3;
         double w0 = 1 / sqrt(L * C), h = M_PI / fmax(w0, R / (2 * L)) / 32.0;
+        tf__seg_modal3(g, s->eig_ws, M_PI / w0);
         double horizon = 64 * M_PI / w0;
         if (!(win < horizon)) {
             g->t1 = t0 + horizon;
@@ -742,6 +744,14 @@ tf_synth *tf_synth_create(const tf_design *d, tf_error *err)
         s->last_fire[p] = -INFINITY;
     }
     s->shoot_through_s = INFINITY;
+    if (s->topo == TF_TOPO_SINGLE) {
+        s->eig_ws = gsl_eigen_nonsymmv_alloc(3);
+        if (!s->eig_ws) {
+            tf_synth_destroy(s);
+            tf_error_set(err, TF_ERR_NOMEM, "simulator: out of memory");
+            return NULL;
+        }
+    }
     double start = isnan(d->start_s) ? 0.0 : d->start_s, tf0;
     int p0;
     s->t_begin = fmin(0.0, start) - 2 * HISTORY_S;
@@ -764,6 +774,8 @@ void tf_synth_destroy(tf_synth *s)
 {
     if (!s)
         return;
+    if (s->eig_ws)
+        gsl_eigen_nonsymmv_free(s->eig_ws);
     free(s->seg);
     free(s->iv);
     free(s->to);

@@ -55,6 +55,8 @@ typedef struct tf_seg {
     tf_rlc2 m;        /* TANK: tank; CHOKE: (Lr, Rr, C, 0) with current -i_choke */
     double A[9], xp[3]; /* TANK3: dx/dt = A (x - xp) */
     int ev, ev_arg;   /* what ends the segment (TF_EV_*) and its position or threshold */
+    int nmodes;       /* TANK3 with a modal form: x = xp + sum_m coef[r][m] exp(lam_m tau) */
+    double complex lam[3], coef[3][3];
 } tf_seg;
 
 enum { TF_EV_ZERO = 0, TF_EV_FIRE, TF_EV_THRESH, TF_EV_RESCAN, TF_EV_NONE };
@@ -65,6 +67,11 @@ void tf__seg_state(const tf_seg *g, double t, double x[3], double *didt);
 
 /* 3x3 propagator exp(A tau) of a TANK3 segment (row-major), via GSL. */
 void tf__seg_prop3(const tf_seg *g, double tau, double P[9]);
+
+/* Modal form of a TANK3 segment from GSL's eigen-decomposition (ws: a
+ * gsl_eigen_nonsymmv workspace of size 3); kept only when it reproduces the matrix
+ * exponential to 1e-12 at two check points, else g->nmodes = 0 (matrix exponential). */
+void tf__seg_modal3(tf_seg *g, void *ws, double check_tau);
 
 /* Exact 2x2 or 3x3 propagator of the deviation y = x - particular over a step h;
  * y_next = P y. For TANK: y = (i, vc - E); CHOKE: (i_choke, vc). Returns the dimension
@@ -144,6 +151,7 @@ struct tf_synth {
     int nomem;
 
     tf_synth_accum *acc;         /* non-NULL while computing the truth */
+    void *eig_ws;                /* single: gsl_eigen_nonsymmv workspace */
 };
 
 /* Firing n of the sequence: time and position; 0 when there is none. */

@@ -1,6 +1,7 @@
 /* Closed-form responses of the simulator's interval models and the root finder for events. */
 #include "synth_engine.h"
 
+#include <gsl/gsl_eigen.h>
 #include <gsl/gsl_errno.h>
 #include <gsl/gsl_linalg.h>
 #include <gsl/gsl_roots.h>
@@ -115,6 +116,84 @@ void tf__seg_prop3(const tf_seg *g, double tau, double P[9])
     memcpy(P, e, sizeof e);
 }
 
+static void modal_eval(const tf_seg *g, double tau, double x[3])
+{
+    double complex e[3];
+    for (int m = 0; m < g->nmodes; m++)
+        e[m] = cexp(g->lam[m] * tau);
+    for (int r = 0; r < 3; r++) {
+        double complex v = 0;
+        for (int m = 0; m < g->nmodes; m++)
+            v += g->coef[r][m] * e[m];
+        x[r] = g->xp[r] + creal(v);
+    }
+}
+
+static void prop_eval(const tf_seg *g, double tau, double x[3])
+{
+    double P[9], y[3];
+    tf__seg_prop3(g, tau, P);
+    for (int r = 0; r < 3; r++)
+        y[r] = g->x0[r] - g->xp[r];
+    for (int r = 0; r < 3; r++)
+        x[r] = g->xp[r] + P[3 * r] * y[0] + P[3 * r + 1] * y[1] + P[3 * r + 2] * y[2];
+}
+
+void tf__seg_modal3(tf_seg *g, void *ws, double check_tau)
+{
+    g->nmodes = 0;
+    if (!ws)
+        return;
+    double a[9];
+    memcpy(a, g->A, sizeof a);
+    double complex ev[3], V[9], LU[9], y[3], c[3];
+    gsl_matrix_view av = gsl_matrix_view_array(a, 3, 3);
+    gsl_vector_complex_view evv = gsl_vector_complex_view_array((double *)ev, 3);
+    gsl_matrix_complex_view Vv = gsl_matrix_complex_view_array((double *)V, 3, 3);
+    gsl_error_handler_t *old = gsl_set_error_handler_off();
+    int st = gsl_eigen_nonsymmv(&av.matrix, &evv.vector, &Vv.matrix, ws);
+    if (st == GSL_SUCCESS) {
+        memcpy(LU, V, sizeof V);
+        size_t pd[3];
+        gsl_permutation perm = {3, pd};
+        int sig;
+        gsl_matrix_complex_view LUv = gsl_matrix_complex_view_array((double *)LU, 3, 3);
+        for (int r = 0; r < 3; r++)
+            y[r] = g->x0[r] - g->xp[r];
+        gsl_vector_complex_view yv = gsl_vector_complex_view_array((double *)y, 3);
+        gsl_vector_complex_view cv = gsl_vector_complex_view_array((double *)c, 3);
+        st = gsl_linalg_complex_LU_decomp(&LUv.matrix, &perm, &sig);
+        if (st == GSL_SUCCESS)
+            st = gsl_linalg_complex_LU_solve(&LUv.matrix, &perm, &yv.vector, &cv.vector);
+    }
+    gsl_set_error_handler(old);
+    if (st != GSL_SUCCESS)
+        return;
+    for (int m = 0; m < 3; m++) {
+        if (!isfinite(creal(c[m])) || !isfinite(cimag(c[m])))
+            return;
+        g->lam[m] = ev[m];
+        for (int r = 0; r < 3; r++)
+            g->coef[r][m] = V[3 * r + m] * c[m];
+    }
+    g->nmodes = 3;
+    /* keep the modal form only where it agrees with the matrix exponential */
+    double scale = 0;
+    for (int r = 0; r < 3; r++)
+        scale = fmax(scale, fabs(g->x0[r] - g->xp[r]));
+    double taus[2] = {check_tau / 7.0, check_tau};
+    for (int k = 0; k < 2; k++) {
+        double xm[3], xe[3];
+        modal_eval(g, taus[k], xm);
+        prop_eval(g, taus[k], xe);
+        for (int r = 0; r < 3; r++)
+            if (!(fabs(xm[r] - xe[r]) <= 1e-12 * scale + 1e-300)) {
+                g->nmodes = 0;
+                return;
+            }
+    }
+}
+
 void tf__seg_state(const tf_seg *g, double t, double x[3], double *didt)
 {
     double tau = t - g->t0;
@@ -135,16 +214,13 @@ void tf__seg_state(const tf_seg *g, double t, double x[3], double *didt)
         *didt = 0;
         return;
     }
-    case TF_MODEL_TANK3: {
-        double P[9], y[3];
-        tf__seg_prop3(g, tau, P);
-        for (int r = 0; r < 3; r++)
-            y[r] = g->x0[r] - g->xp[r];
-        for (int r = 0; r < 3; r++)
-            x[r] = g->xp[r] + P[3 * r] * y[0] + P[3 * r + 1] * y[1] + P[3 * r + 2] * y[2];
+    case TF_MODEL_TANK3:
+        if (g->nmodes)
+            modal_eval(g, tau, x);
+        else
+            prop_eval(g, tau, x);
         *didt = (g->E - g->R * x[0] - x[1]) / g->L;
         return;
-    }
     default:
         x[0] = 0;
         x[1] = g->x0[1];

@@ -78,33 +78,51 @@ static double complex cint(double complex m, double a, double b)
     return ea * cexpm1_(m * D) / m;
 }
 
-/* Channel values of a segment as K + Re(C exp(mu tau)), tau = t - t0, when the segment
- * has that form (rest, or an underdamped 2-state model away from critical damping).
- * The channels are affine in (i, vc): their coefficients are found by probing. */
-static int modal_form(const tf_synth *s, const tf_seg *g, double K[4], double complex C[4],
-                      double complex *mu)
+#define NMODE 3
+
+/* Channel values of a segment as K + sum_m Re(C_m exp(lam_m tau)), tau = t - t0, when the
+ * segment has that form: rest, an underdamped 2-state model away from critical damping,
+ * or a 3-state interval with a verified modal form. Returns the number of modes, -1 when
+ * there is no such form. The channels are affine in (i, vc): coefficients by probing. */
+static int modal_form(const tf_synth *s, const tf_seg *g, double K[4],
+                      double complex C[4][NMODE], double complex lam[NMODE])
 {
     double x[3] = {0, 0, 0}, c0[4], ci[4], cv[4];
     if (g->model == TF_MODEL_REST) {
         x[1] = g->x0[1];
         tf__channels(s, g, x, 0, c0);
-        for (int c = 0; c < 4; c++) {
+        for (int c = 0; c < 4; c++)
             K[c] = c0[c];
-            C[c] = 0;
-        }
-        *mu = 0;
-        return 1;
+        return 0;
     }
-    if (g->model != TF_MODEL_TANK && g->model != TF_MODEL_CHOKE)
-        return 0;
-    const tf_rlc2 *m = &g->m;
-    if (m->regime != TF_RLC_UNDER || m->w < 1e-3 * m->alpha)
-        return 0;
-    int tank = g->model == TF_MODEL_TANK;
-    /* the model's own current: the tank current, or minus the choke current */
-    double u0 = tank ? g->x0[0] : -g->x0[2], xd = g->x0[1] - m->E;
-    double ku = -xd / m->L - m->alpha * u0, kx = u0 / m->C + m->alpha * xd;
-    double complex cu = u0 - I * ku / m->w, cx = xd - I * kx / m->w;
+    double complex cu[NMODE] = {0}, cx[NMODE] = {0};
+    double ku0 = 0, kx0 = 0; /* constant parts of i and vc */
+    int nm;
+    if (g->model == TF_MODEL_TANK || g->model == TF_MODEL_CHOKE) {
+        const tf_rlc2 *m = &g->m;
+        if (m->regime != TF_RLC_UNDER || m->w < 1e-3 * m->alpha)
+            return -1;
+        int tank = g->model == TF_MODEL_TANK;
+        /* the model's own current: the tank current, or minus the choke current */
+        double u0 = tank ? g->x0[0] : -g->x0[2], xd = g->x0[1] - m->E;
+        double ku = -xd / m->L - m->alpha * u0, kx = u0 / m->C + m->alpha * xd;
+        cu[0] = tank ? u0 - I * ku / m->w : 0;
+        cx[0] = xd - I * kx / m->w;
+        kx0 = m->E;
+        lam[0] = -m->alpha + I * m->w;
+        nm = 1;
+    } else if (g->model == TF_MODEL_TANK3 && g->nmodes == NMODE) {
+        for (int k = 0; k < NMODE; k++) {
+            cu[k] = g->coef[0][k];
+            cx[k] = g->coef[1][k];
+            lam[k] = g->lam[k];
+        }
+        ku0 = g->xp[0];
+        kx0 = g->xp[1];
+        nm = NMODE;
+    } else {
+        return -1;
+    }
 #define PROBE(out, ii, vv)                                                                  \
     do {                                                                                    \
         double xx[3] = {(ii), (vv), 0};                                                     \
@@ -117,38 +135,63 @@ static int modal_form(const tf_synth *s, const tf_seg *g, double K[4], double co
 #undef PROBE
     for (int c = 0; c < 4; c++) {
         double ai = ci[c] - c0[c], av = cv[c] - c0[c];
-        K[c] = c0[c] + av * m->E;
-        C[c] = (tank ? ai * cu : 0) + av * cx;
+        K[c] = c0[c] + ai * ku0 + av * kx0;
+        for (int k = 0; k < nm; k++)
+            C[c][k] = ai * cu[k] + av * cx[k];
     }
-    *mu = -m->alpha + I * m->w;
-    return 1;
+    return nm;
+}
+
+/* Integral over [ta, tb] of (sum_m Re(A_m e^(l_m t))) (sum_n Re(B_n e^(l_n t))). */
+static double cross(int nm, const double complex *A, const double complex *B,
+                    const double complex *l, double ta, double tb)
+{
+    double v = 0;
+    for (int m = 0; m < nm; m++)
+        for (int n = 0; n < nm; n++)
+            v += 0.5 * creal(A[m] * B[n] * cint(l[m] + l[n], ta, tb) +
+                             A[m] * conj(B[n]) * cint(l[m] + conj(l[n]), ta, tb));
+    return v;
 }
 
 /* Exact integrals of one segment over [a, b] (absolute times). */
-static void accum_modal(tf_synth *s, const tf_seg *g, double a, double b, int harm,
-                        const double K[4], const double complex C[4], double complex mu)
+static void accum_modal(tf_synth *s, const tf_seg *g, double a, double b, int harm, int nm,
+                        const double K[4], double complex C[4][NMODE],
+                        const double complex lam[NMODE])
 {
     tf_synth_accum *A = s->acc;
     double ta = a - g->t0, tb = b - g->t0, D = b - a;
-    double complex I1 = cint(mu, ta, tb), I2 = cint(2 * mu, ta, tb);
-    double Ir = creal(cint(2 * creal(mu), ta, tb));
+    double complex I1[NMODE];
+    for (int m = 0; m < nm; m++)
+        I1[m] = cint(lam[m], ta, tb);
     if (!harm) {
-        for (int c = 0; c < 4; c++)
-            A->sq[c] += K[c] * K[c] * D + 2 * K[c] * creal(C[c] * I1) +
-                        0.5 * (creal(C[c] * conj(C[c])) * Ir + creal(C[c] * C[c] * I2));
+        for (int c = 0; c < 4; c++) {
+            double lin = 0;
+            for (int m = 0; m < nm; m++)
+                lin += creal(C[c][m] * I1[m]);
+            A->sq[c] += K[c] * K[c] * D + 2 * K[c] * lin + cross(nm, C[c], C[c], lam, ta, tb);
+        }
         return;
     }
     const int iv = TF_SYN_V_OUT, ii = TF_SYN_I_LOAD;
-    A->pw += K[iv] * K[ii] * D + K[iv] * creal(C[ii] * I1) + K[ii] * creal(C[iv] * I1) +
-             0.5 * creal(C[iv] * C[ii] * I2 + C[iv] * conj(C[ii]) * Ir);
+    double li = 0, lv = 0;
+    for (int m = 0; m < nm; m++) {
+        li += creal(C[ii][m] * I1[m]);
+        lv += creal(C[iv][m] * I1[m]);
+    }
+    A->pw += K[iv] * K[ii] * D + K[iv] * li + K[ii] * lv + cross(nm, C[iv], C[ii], lam, ta, tb);
     double wf = 2 * M_PI / A->period;
     for (int n = 0; n <= NHARM; n++) {
         double complex jw = I * (n * wf);
-        double complex ph = cexp(-jw * (g->t0 - A->ps));
-        double complex Ik = cint(-jw, ta, tb), Ip = cint(mu - jw, ta, tb);
-        double complex Im = cint(conj(mu) - jw, ta, tb);
-        A->hi[n] += ph * (K[ii] * Ik + 0.5 * C[ii] * Ip + 0.5 * conj(C[ii]) * Im);
-        A->hv[n] += ph * (K[iv] * Ik + 0.5 * C[iv] * Ip + 0.5 * conj(C[iv]) * Im);
+        double complex ph = cexp(-jw * (g->t0 - A->ps)), Ik = cint(-jw, ta, tb);
+        double complex si = K[ii] * Ik, sv = K[iv] * Ik;
+        for (int m = 0; m < nm; m++) {
+            double complex Ip = cint(lam[m] - jw, ta, tb), Im = cint(conj(lam[m]) - jw, ta, tb);
+            si += 0.5 * (C[ii][m] * Ip + conj(C[ii][m]) * Im);
+            sv += 0.5 * (C[iv][m] * Ip + conj(C[iv][m]) * Im);
+        }
+        A->hi[n] += ph * si;
+        A->hv[n] += ph * sv;
     }
 }
 
@@ -158,9 +201,10 @@ static void accum_span(tf_synth *s, const tf_seg *g, double a, double b, int har
 {
     tf_synth_accum *A = s->acc;
     double K[4];
-    double complex C[4], mu;
-    if (!A->force_quadrature && modal_form(s, g, K, C, &mu))
-        accum_modal(s, g, a, b, harm, K, C, mu);
+    double complex C[4][NMODE], lam[NMODE];
+    int nm = A->force_quadrature ? -1 : modal_form(s, g, K, C, lam);
+    if (nm >= 0)
+        accum_modal(s, g, a, b, harm, nm, K, C, lam);
     else
         integrate(s, g, a, b, harm ? A->w_harm : A->w_rms, harm);
 }
@@ -391,8 +435,7 @@ static json_t *build_json(tf_synth *r, const tf_synth_accum *A)
                             json_string("Fourier integrals of the exact waveform over whole "
                                         "firing periods: closed form per interval, "
                                         "16-point Gauss-Legendre panels where there is "
-                                        "none (single-switch conduction, near-critical "
-                                        "damping)"));
+                                        "none (near-critical or overdamped intervals)"));
         json_object_set_new(h, "i_load", harm_json(A, A->hi));
         json_object_set_new(h, "v_out", harm_json(A, A->hv));
         json_object_set_new(o, "harmonics", h);

@@ -947,6 +947,48 @@ static void test_synth_truth_closed_form_vs_quadrature(void **state)
     compare_truth_methods(d);
     d->topology = TF_TOPO_FULL_BRIDGE;
     compare_truth_methods(d);
+    d->topology = TF_TOPO_SINGLE;
+    d->firing_frequency_hz = 4000;
+    d->reset_inductance_h = 2e-3;
+    d->reset_resistance_ohm = 2.0;
+    compare_truth_methods(d);
+    free(d);
+}
+
+/* The single-switch stage conducts with three states (tank + reset choke): its modal form
+ * from the eigen-decomposition agrees with the scaling-and-squaring matrix exponential
+ * (GSL, two independent methods), and the DC equilibrium is E / (R + R_r) through both
+ * inductors (source: Kirchhoff's laws at DC). */
+static void test_synth_single_modal_vs_expm(void **state)
+{
+    (void)state;
+    tf_design *d = design_new(TF_TOPO_SINGLE);
+    d->reset_inductance_h = 2e-3;
+    d->reset_resistance_ohm = 2.0;
+    tf_synth *s = make(d);
+    advance(s, 1e-5);
+    const tf_seg *g = NULL;
+    for (size_t k = 0; k < s->seg_count; k++) {
+        const tf_seg *c = &s->seg[s->seg_first + k];
+        if (c->t0 <= 1e-5 && 1e-5 < c->t1)
+            g = c;
+    }
+    assert_non_null(g);
+    assert_int_equal(g->model, TF_MODEL_TANK3);
+    assert_int_equal(g->nmodes, 3);
+    double E = d->dc_link_v - d->thyristor_drop_v, Rt = d->resistance_ohm + 2.0;
+    assert_true(tf_test_reldiff(g->xp[0], E / Rt) < 1e-14);
+    assert_true(tf_test_reldiff(g->xp[1], 2.0 * E / Rt) < 1e-14);
+    tf_seg plain = *g;
+    plain.nmodes = 0;
+    for (double tau = 0; tau < 3e-5; tau += 1.3e-6) {
+        double a[3], b[3], da, db;
+        tf__seg_state(g, g->t0 + tau, a, &da);
+        tf__seg_state(&plain, g->t0 + tau, b, &db);
+        for (int r = 0; r < 3; r++)
+            assert_true(fabs(a[r] - b[r]) < 1e-11 * (1 + fabs(b[r])));
+    }
+    tf_synth_destroy(s);
     free(d);
 }
 
@@ -954,6 +996,7 @@ int main(void)
 {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_synth_truth_harmonics_numpy),
+        cmocka_unit_test(test_synth_single_modal_vs_expm),
         cmocka_unit_test(test_synth_truth_closed_form_vs_quadrature),
         cmocka_unit_test(test_synth_first_lobe_textbook),
         cmocka_unit_test(test_synth_half_bridge_sequence),
