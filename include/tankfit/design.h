@@ -111,9 +111,10 @@ typedef struct tf_design {
  * not given is NAN (a limit that stays NAN is not evaluated), text keys are "",
  * topology TF_TOPO_UNKNOWN, capacitor series, mode TF_MODE_ANY; [capture]
  * sample_rate 10 MHz, duration 2 ms, start 0, csv, time_digits 9, value_digits 6,
- * seed 1, no noise, range, skew or quantisation, every channel enabled. The
- * drops stay NAN (the simulator alone treats a missing drop as 0 V). d must not be
- * NULL. */
+ * seed 1, adc_bits 0, no noise, range, skew or quantisation, every channel
+ * enabled (parsing then enables only the channels the topology has, unless a
+ * CH.enabled key says otherwise). The drops stay NAN (the simulator alone treats a
+ * missing drop as 0 V). d must not be NULL. */
 void tf_design_init(tf_design *d);
 
 /* Read and parse the design file at path (UTF-8 INI, at most 1 MiB) into d, which
@@ -143,16 +144,21 @@ tf_status tf_design_parse(const char *text, size_t len, const char *name, tf_des
  * choke of a single stage, turnoff_time, skews within +/- 1 ms, at least two
  * samples). for_synth zero (acceptance checks): each limit that is given has the
  * design values it is compared against (q_tolerance needs capacitance,
- * inductance and resistance, turnoff_ratio_min needs turnoff_time, ...).
- * Returns TF_OK or TF_ERR_DATA. */
+ * inductance and resistance, turnoff_ratio_min needs turnoff_time, ...), no
+ * relative tolerance on a 0 ohm tank, probe factors fit their columns (no V/V on
+ * the current), no column named for two roles. The checks of for_synth zero are
+ * always made. Returns TF_OK or TF_ERR_DATA (TF_ERR_USAGE when d is NULL). */
 tf_status tf_design_validate(const tf_design *d, int for_synth, tf_error *err);
 
 /* The design as a JSON object for records: one object per section, the keys as
  * written in design files, numbers in SI base units (percent as fractions), keys
  * that were not given left out, and a "units" object mapping "section.key" to the
- * unit of every number present. Per-channel [capture] settings appear under
- * "capture" as e.g. "v_out.range". NULL only when out of memory. The caller owns
- * the result (json_decref). */
+ * unit of every number present ("1" for ratios and gate levels, "A/V" or "V/V"
+ * for probe factors as written). Per-channel [capture] settings appear under
+ * "capture" as e.g. "v_out.range"; firing_times is an array; schedule points are
+ * [t, R, L] arrays with null for '-'; seed is an integer (a string above 2^63 - 1).
+ * Written back as INI with bare numbers it parses to the same design. NULL only
+ * when out of memory. The caller owns the result (json_decref). */
 json_t *tf_design_to_json(const tf_design *d);
 
 /* Unit of a key's value as stored in tf_design and written by tf_design_to_json:
