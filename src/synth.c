@@ -316,7 +316,9 @@ static void forward_returned(tf_synth *s, int pos, double t, int cs_now)
     if (isnan(r->reverse_end_s))
         r->reverse_end_s = t;
     double toff = t - r->zero_s;
-    if (s->tq > 0 && toff < s->tq) {
+    /* conducting again on its own gate pulse (ring-down's held gate) is no failure */
+    int refired = cs_now == CS(pos, TF_K_THY) && tf__gate_on(s, pos, t);
+    if (s->tq > 0 && toff < s->tq && !refired) {
         r->failed = 1;
         int kind = TF_FAIL_FORWARD;
         if (cs_now == CS(pos, TF_K_THY))

@@ -385,6 +385,16 @@ static void test_synth_ring_down_decrement(void **state)
                     1e-9);
     }
     tf_synth_destroy(s);
+    /* the held gate makes T1 conduct again each cycle: no commutation failure even with
+     * t_q longer than the diode interval */
+    d->turnoff_time_s = 50e-6;
+    d->duration_s = 1e-3;
+    s = make(d);
+    json_t *j = truth(s);
+    assert_int_equal(json_array_size(json_object_get(j, "commutation_failures")), 0);
+    assert_true(json_array_size(json_object_get(j, "turnoff")) > 10);
+    json_decref(j);
+    tf_synth_destroy(s);
     /* with drops the ringing stops once a lobe cannot overcome them */
     d->thyristor_drop_v = 1.5;
     d->diode_drop_v = 1.0;
