@@ -385,6 +385,15 @@ static int run(int argc, char **argv)
     int rc = parse(argc, argv, &a);
     if (rc)
         return rc;
+    /* refuse before the (long) analysis when an output exists */
+    const char *outs[2] = {a.csv, a.svg};
+    for (int k = 0; k < 2; k++)
+        if (outs[k] && access(outs[k], F_OK) == 0) {
+            fprintf(stderr, "tankfit track: %s exists; not replacing it (choose another name)\n", outs[k]);
+            return EXIT_CANTCREAT;
+        }
+    if (a.csv && a.svg && strcmp(a.csv, a.svg) == 0)
+        return tf_cli_usage("track", "--csv and --svg name the same file '%s'", a.csv);
     tf_design *d = NULL;
     tf_error err;
     tf_error_clear(&err);
