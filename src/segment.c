@@ -80,6 +80,8 @@ tf_status seg_find_clipping(const float *x, size_t n, double lsb, const seg_vec 
             return TF_ERR_NOMEM;
         c->i0 = a;
         c->i1 = b;
+        c->at = at + 1;
+        c->rail = ext;
     }
     return TF_OK;
 }
@@ -137,13 +139,15 @@ static int refine_chain(const seg_input *in, seg_run *r, size_t j, size_t q, dou
     double med = 0, lo = INFINITY, hi = 0;
     for (size_t p = j; p <= q; p++) {
         double d = r[p].t_end - r[p].t_start;
-        if (p == q && r[q].k_end == SEG_B_EDGE)
-            continue;
+        if ((p == q && r[q].k_end == SEG_B_EDGE) || r[p].pk < 8 * in->band)
+            continue; /* partial or weak lobes: their rough durations say little */
         lo = fmin(lo, d);
         hi = fmax(hi, d);
         med += d;
     }
-    size_t nfull = np - (r[q].k_end == SEG_B_EDGE);
+    size_t nfull = 0;
+    for (size_t p = j; p <= q; p++)
+        nfull += !((p == q && r[q].k_end == SEG_B_EDGE) || r[p].pk < 8 * in->band);
     if (!nfull || hi > 1.2 * lo || r[j].i1 < r[j].i0 + 10)
         return 0;
     med /= (double)nfull;
@@ -166,8 +170,9 @@ static int refine_chain(const seg_input *in, seg_run *r, size_t j, size_t q, dou
     double half = M_PI / w;
     for (size_t p = j; p <= q; p++) {
         double t0 = ts + (double)(p - j) * half, t1 = t0 + half;
-        if (fabs(t0 - r[p].t_start) > 0.1 * half ||
-            (r[p].k_end != SEG_B_EDGE && fabs(t1 - r[p].t_end) > 0.1 * half))
+        if (r[p].pk >= 8 * in->band &&
+            (fabs(t0 - r[p].t_start) > 0.1 * half ||
+             (r[p].k_end != SEG_B_EDGE && fabs(t1 - r[p].t_end) > 0.1 * half)))
             return 0;
     }
     for (size_t p = j; p <= q; p++) {
@@ -181,50 +186,97 @@ static int refine_chain(const seg_input *in, seg_run *r, size_t j, size_t q, dou
     return 1;
 }
 
-void seg_refine_boundaries(const seg_input *in, seg_vec *runs)
+/* Zero of lobe j's own model near its start (end = 0) or end (end = 1). */
+static int lobe_zero(const seg_input *in, const seg_run *r, int end, int offset, double *z)
+{
+    double dur = r->t_end - r->t_start;
+    if (!(dur > 8) || r->i1 < r->i0 + 10)
+        return -1;
+    size_t k0 = r->k_start == SEG_B_DIRECT || r->k_start == SEG_B_FIRING
+                    ? (size_t)ceil(r->t_start) + 1 : r->i0 + 1;
+    size_t k1 = r->k_end == SEG_B_DIRECT || r->k_end == SEG_B_FIRING
+                    ? (size_t)floor(r->t_end) - 1 : r->i1 - 1;
+    double tb = end ? r->t_end : r->t_start;
+    if (seg_model_zero(in->x, k0, k1, in->clips, in->nclips, tb, M_PI / dur, 0.0, offset, z) != 0) {
+        return -1;
+    }
+
+    if (fabs(*z - tb) > 0.2 * dur || (!end && *z > (double)r->i0 + 0.5) ||
+        (end && *z < (double)r->i1 - 0.5))
+        return -1;
+    return 0;
+}
+
+void seg_refine_boundaries(const seg_input *in, seg_vec *runs, tf_topology topo)
 {
     seg_run *r = runs->data;
     double prior[2] = {0, 0};
+    /* a reset choke (single switch) adds a slow current: the pieces no longer share
+     * zeros, so each lobe gets its own model with an offset term */
+    int single = topo == TF_TOPO_SINGLE;
     /* chains: from a lobe rising out of zero, through straight crossings, to a lobe
      * that returns to zero (or runs off the record) */
-    for (size_t j = 0; j < runs->n; j++) {
+    for (size_t j = 0; j < runs->n && !single; j++) {
         if (!is_zero_kind(r[j].k_start))
             continue;
         size_t q = j;
-        while (q + 1 < runs->n && r[q].k_end == SEG_B_DIRECT && q - j + 1 < 64)
+        /* a ring-down's tail fades into the noise: the chain keeps the strong lobes */
+        while (q + 1 < runs->n && r[q].k_end == SEG_B_DIRECT && q - j + 1 < 64 &&
+               r[q + 1].pk > 3 * in->band)
             q++;
-        if (q > j && (is_zero_kind(r[q].k_end) || r[q].k_end == SEG_B_EDGE) &&
-            refine_chain(in, r, j, q, prior))
+        if (q > j && refine_chain(in, r, j, q, prior))
             j = q;
     }
+    double *zs = malloc((runs->n + 1) * 3 * sizeof *zs);
+    if (!zs)
+        return; /* the rough boundaries stay: still valid, less precise */
+    double *chained = zs + 2 * (runs->n + 1);
+    int bridge = topo == TF_TOPO_HALF_BRIDGE || topo == TF_TOPO_FULL_BRIDGE;
     for (size_t j = 0; j < runs->n; j++) {
-        if (r[j].start_model || r[j].end_model)
+        zs[2 * j] = zs[2 * j + 1] = NAN;
+        chained[j] = r[j].start_model || r[j].end_model;
+        /* a bridge's stretch between two crossings may hold a diode piece and the next
+         * thyristor piece (overlapping): one model does not fit it, so its neighbours'
+         * own models give those crossings */
+        if (chained[j] || (bridge && r[j].k_start == SEG_B_DIRECT && r[j].k_end == SEG_B_DIRECT))
             continue;
-        double dur = r[j].t_end - r[j].t_start;
-        if (!(dur > 8) || r[j].i1 < r[j].i0 + 10)
+        double z;
+        if ((single || is_zero_kind(r[j].k_start) || r[j].k_start == SEG_B_DIRECT) &&
+            r[j].k_start != SEG_B_EDGE && lobe_zero(in, &r[j], 0, single, &z) == 0)
+            zs[2 * j] = z;
+        if ((single || is_zero_kind(r[j].k_end) || r[j].k_end == SEG_B_DIRECT) &&
+            r[j].k_end != SEG_B_EDGE && lobe_zero(in, &r[j], 1, single, &z) == 0)
+            zs[2 * j + 1] = z;
+    }
+    for (size_t j = 0; j < runs->n; j++) {
+        if (chained[j])
             continue;
-        double w = M_PI / dur, z;
-        if (is_zero_kind(r[j].k_start)) {
-            size_t k1 = r[j].k_end == SEG_B_DIRECT || r[j].k_end == SEG_B_FIRING
-                            ? (size_t)floor(r[j].t_end) - 1 : r[j].i1 - 1;
-            if (seg_model_zero(in->x, r[j].i0 + 1, k1, in->clips, in->nclips, r[j].t_start, w,
-                               0.0, &z) == 0 &&
-                z <= (double)r[j].i0 + 0.5 && fabs(z - r[j].t_start) < 0.2 * dur) {
-                r[j].t_start = z;
-                r[j].start_model = 1;
-            }
+        if (isfinite(zs[2 * j + 1]) && r[j].k_end != SEG_B_DIRECT) {
+            r[j].t_end = zs[2 * j + 1];
+            r[j].end_model = 1;
         }
-        if (is_zero_kind(r[j].k_end)) {
-            size_t k0 = r[j].k_start == SEG_B_DIRECT || r[j].k_start == SEG_B_FIRING
-                            ? (size_t)ceil(r[j].t_start) + 1 : r[j].i0 + 1;
-            if (seg_model_zero(in->x, k0, r[j].i1 - 1, in->clips, in->nclips, r[j].t_end, w,
-                               0.0, &z) == 0 &&
-                z >= (double)r[j].i1 - 0.5 && fabs(z - r[j].t_end) < 0.2 * dur) {
-                r[j].t_end = z;
-                r[j].end_model = 1;
-            }
+        if (isfinite(zs[2 * j]) && r[j].k_start != SEG_B_DIRECT) {
+            r[j].t_start = zs[2 * j];
+            r[j].start_model = 1;
+        }
+        if (r[j].k_end == SEG_B_DIRECT && j + 1 < runs->n && !chained[j + 1] &&
+            isfinite(zs[2 * j + 1]) != isfinite(zs[2 * j + 2]) &&
+            fabs((isfinite(zs[2 * j + 1]) ? zs[2 * j + 1] : zs[2 * j + 2]) - r[j].t_end) < 3.0) {
+            /* only one side has a model (the other is an overlapping stretch) */
+            double z = isfinite(zs[2 * j + 1]) ? zs[2 * j + 1] : zs[2 * j + 2];
+            r[j].t_end = r[j + 1].t_start = z;
+            r[j].end_model = r[j + 1].start_model = 1;
+        }
+        /* a straight crossing: both lobes' models, averaged, when they agree */
+        if (r[j].k_end == SEG_B_DIRECT && j + 1 < runs->n && !chained[j + 1] &&
+            isfinite(zs[2 * j + 1]) && isfinite(zs[2 * j + 2]) &&
+            fabs(zs[2 * j + 1] - zs[2 * j + 2]) < 3.0) {
+            double z = 0.5 * (zs[2 * j + 1] + zs[2 * j + 2]);
+            r[j].t_end = r[j + 1].t_start = z;
+            r[j].end_model = r[j + 1].start_model = 1;
         }
     }
+    free(zs);
 }
 
 tf_status tf_segment_run(const tf_capture *cap, const tf_roles *roles,
@@ -299,7 +351,12 @@ tf_status tf_segment_run(const tf_capture *cap, const tf_roles *roles,
         st = tf_error_set(err, TF_ERR_DATA, "current channel '%s': no conduction lobe found",
                           ch->name);
     else if (st == TF_OK) {
-        seg_refine_boundaries(&in, &runs);
+        if (topo == TF_TOPO_UNKNOWN)
+            topo = seg_infer_topology(&in, runs.data, runs.n, r->topology_evidence,
+                                      sizeof r->topology_evidence);
+        else
+            snprintf(r->topology_evidence, sizeof r->topology_evidence, "given");
+        seg_refine_boundaries(&in, &runs, topo);
         st = seg_attribute(&in, &runs, topo, r);
     }
     if (st == TF_OK && fire.n) {

@@ -22,8 +22,8 @@ static double median_of(double *v, size_t n)
 
 /* ---- topology ------------------------------------------------------------------- */
 
-static tf_topology infer_topology(const seg_input *in, const seg_run *r, size_t nr, char *ev,
-                                  size_t evsize)
+tf_topology seg_infer_topology(const seg_input *in, const seg_run *r, size_t nr, char *ev,
+                               size_t evsize)
 {
     if (in->ngates >= 3) {
         snprintf(ev, evsize, "%d gate channels fire: full-bridge", in->ngates);
@@ -33,22 +33,29 @@ static tf_topology infer_topology(const seg_input *in, const seg_run *r, size_t 
         snprintf(ev, evsize, "2 gate channels fire: half-bridge");
         return TF_TOPO_HALF_BRIDGE;
     }
-    size_t same = 0, opp = 0, starts = 0;
+    /* the pattern is read on strong lobes only: a ring-down's tail, down in the noise,
+     * breaks into fragments with gaps that are not dead zones of a firing sequence */
+    size_t same = 0, opp = 0, starts = 0, strong = 0;
+    const float big = (float)(8 * in->band);
     for (size_t j = 0; j + 1 < nr; j++) {
-        if (!zero_kind(r[j].k_end))
+        if (!zero_kind(r[j].k_end) || r[j].pk < big || r[j + 1].pk < big)
             continue;
         if (r[j].sign == r[j + 1].sign)
             same++;
         else
             opp++;
     }
-    for (size_t j = 0; j < nr; j++)
+    for (size_t j = 0; j < nr; j++) {
+        if (r[j].pk < big)
+            continue;
+        strong++;
         starts += zero_kind(r[j].k_start) || (j == 0 && r[j].k_start == SEG_B_EDGE);
+    }
     if (in->ngates == 1 && in->nfire > 1) {
         snprintf(ev, evsize, "one gate channel fires: single switch");
         return TF_TOPO_SINGLE;
     }
-    if ((in->ngates == 1 && in->nfire == 1) || (starts <= 1 && nr >= 4 && same + opp <= 1)) {
+    if ((in->ngates == 1 && in->nfire == 1) || (starts <= 1 && strong >= 4 && same + opp <= 1)) {
         double first = r[0].pk, last = r[nr - 1].pk;
         if (in->nfire == 1 || last < 0.7 * first) {
             snprintf(ev, evsize, "one firing followed by %zu alternating decaying lobes: "
@@ -315,7 +322,9 @@ static tf_status attribute_devices(const seg_input *in, tf_topology topo, tf_lob
         tf_lobe *l = &L[j];
         double ts = l->start_s;
         if (topo == TF_TOPO_RING_DOWN) {
-            l->device = TF_DEV_RING;
+            /* one bidirectional switch: the thyristor carries the first lobe's direction,
+             * its diode the other one */
+            l->device = l->sign == L[0].sign ? TF_DEV_T1 : TF_DEV_D1;
             continue;
         }
         int tpos = zero_kind(rec[j].k0) || rec[j].k0 == SEG_B_FIRING;
@@ -413,13 +422,14 @@ static void stat3(double *v, size_t n, tf_stat3 *s)
 }
 
 static tf_status build_cycles(const seg_input *in, tf_lobe *L, const lobe_rec *rec, size_t nl,
-                              double wsplit, seg_vec *cyc)
+                              double wsplit, int ring, seg_vec *cyc)
 {
     const double dt = in->cap->dt_s;
     for (size_t j = 0; j < nl; j++) {
         if (!tf_device_is_thyristor(L[j].device) || rec[j].k0 == SEG_B_EDGE ||
             rec[j].k1 == SEG_B_EDGE)
             continue;
+        (void)ring; /* in a ring-down every lobe of the thyristor's direction counts */
         tf_cycle *c = seg_vec_push(cyc);
         if (!c)
             return TF_ERR_NOMEM;
@@ -590,11 +600,6 @@ tf_status seg_attribute(const seg_input *in, seg_vec *runs, tf_topology topo,
                         tf_segment_result *r)
 {
     const seg_run *rr = runs->data;
-    if (topo == TF_TOPO_UNKNOWN)
-        topo = infer_topology(in, rr, runs->n, r->topology_evidence,
-                              sizeof r->topology_evidence);
-    else
-        snprintf(r->topology_evidence, sizeof r->topology_evidence, "given");
     r->topology = topo;
     seg_vec recs, an, cyc;
     seg_vec_init(&recs, sizeof(lobe_rec));
@@ -621,12 +626,12 @@ tf_status seg_attribute(const seg_input *in, seg_vec *runs, tf_topology topo,
     }
     for (size_t c = 0; c < in->nclips && st == TF_OK; c++)
         st = add_anomaly(&an, tf_capture_time(in->cap, in->clips[c].i0), "clipped",
-                         "current sits at %.4g for %zu samples: lobes touching it have "
-                         "untrusted peaks", (double)in->x[in->clips[c].i0],
-                         in->clips[c].i1 - in->clips[c].i0 + 1);
+                         "%zu samples of the current sit at its extreme %.4g (clipped): "
+                         "the lobe's peak is not trusted", in->clips[c].at,
+                         (double)in->clips[c].rail);
     r->clipped_stretches = in->nclips;
     if (st == TF_OK)
-        st = build_cycles(in, r->lobes, rec, nl, wsplit, &cyc);
+        st = build_cycles(in, r->lobes, rec, nl, wsplit, topo == TF_TOPO_RING_DOWN, &cyc);
     if (st == TF_OK) {
         r->cycles = cyc.data;
         r->ncycles = cyc.n;

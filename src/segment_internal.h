@@ -45,7 +45,11 @@ void *seg_vec_push(seg_vec *v);   /* NULL when out of memory */
 void seg_vec_free(seg_vec *v);
 
 /* Clipped stretches of the current, [i0, i1] inclusive. */
-typedef struct seg_clip { size_t i0, i1; } seg_clip;
+typedef struct seg_clip {
+    size_t i0, i1;     /* span excluded from fits (rail samples plus a margin) */
+    size_t at;         /* samples sitting at the rail */
+    float rail;        /* the extreme value */
+} seg_clip;
 
 /* Noise sigma from the median absolute deviation of first differences
  * (1.4826 * MAD / sqrt 2); a bounded, evenly spread subset keeps it O(1) in memory. */
@@ -80,8 +84,13 @@ typedef struct seg_input {
 tf_status seg_attribute(const seg_input *in, seg_vec *runs, tf_topology topo,
                         tf_segment_result *r);
 
-/* Refine dead-zone and touch boundaries of every run with the damped-sine model. */
-void seg_refine_boundaries(const seg_input *in, seg_vec *runs);
+/* Refine the boundaries of every run with the damped-sine models (chains of pieces
+ * sharing zeros; single switch: each lobe on its own with an offset term). */
+void seg_refine_boundaries(const seg_input *in, seg_vec *runs, tf_topology topo);
+
+/* Topology from the gates and the pattern of dead zones; ev receives the evidence. */
+tf_topology seg_infer_topology(const seg_input *in, const seg_run *r, size_t nr, char *ev,
+                               size_t evsize);
 
 /* Pass over the samples: every excursion out of the band [-band, band]. */
 tf_status seg_scan(const float *x, size_t n, double band, seg_vec *exc);
@@ -99,9 +108,10 @@ int seg_line_zero(const float *x, size_t a, size_t b, double *zero, double *slop
  * x(k) = e^{-a tau} [(c1 + c3 tau) sin(w tau) + (c2 + c4 tau) cos(w tau)], tau = k - t_b,
  * fitted by linear least squares over samples [k0, k1] outside clipped stretches,
  * with priors w (rad/sample) and a (1/sample); the first-order terms c3, c4 absorb
- * errors of the priors. On success *zero is the model's zero nearest t_b. */
+ * errors of the priors; offset adds c5 + c6 tau / (k1 - k0) (a reset choke's slow
+ * current). On success *zero is the full model's zero nearest t_b. */
 int seg_model_zero(const float *x, size_t k0, size_t k1, const seg_clip *clips, size_t nclips,
-                   double t_b, double w, double a, double *zero);
+                   double t_b, double w, double a, int offset, double *zero);
 
 /* A chain of np conduction pieces that share their zeros: piece p spans
  * [ts + p pi/w, ts + (p+1) pi/w) and is A_p e^{-a tau} sin(w tau), tau = k - ts (index

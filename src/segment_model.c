@@ -19,28 +19,27 @@ static int spd_solve(double *a, double *r, double *y, size_t n)
     return st == 0 ? 0 : -1;
 }
 
-/* One linear least-squares fit of the four-term model; c[0..3] = c1..c4 (c3, c4 per
- * unit of tau / scale). Returns 0 on success. */
+/* One linear least-squares fit of the four-term model, plus an offset c5 + c6 u when
+ * nb = 6; c[0..nb-1] (c3, c4, c6 per unit of u = tau / scale). Returns 0 on success. */
 static int fit4(const float *x, size_t k0, size_t k1, const seg_clip *clips, size_t nclips,
-                double t_b, double w, double a, double scale, double c[4])
+                double t_b, double w, double a, double scale, int nb, double c[6])
 {
-    double ata[10] = {0}, atb[4] = {0};
+    double ata[36] = {0}, atb[6] = {0};
     double tau = (double)k0 - t_b;
     double e = exp(-a * tau), co = cos(w * tau), si = sin(w * tau);
     const double de = exp(-a), dc = cos(w), ds = sin(w);
     size_t ci = 0, used = 0;
-    while (ci < nclips && clips[ci].i1 < k0)
-        ci++;
     for (size_t k = k0; k <= k1; k++) {
         while (ci < nclips && clips[ci].i1 < k)
             ci++;
         if (!(ci < nclips && clips[ci].i0 <= k)) {
-            double u = tau / scale;
-            double b0 = e * si, b1 = e * co, b2 = u * b0, b3 = u * b1, v = x[k];
-            ata[0] += b0 * b0; ata[1] += b0 * b1; ata[2] += b0 * b2; ata[3] += b0 * b3;
-            ata[4] += b1 * b1; ata[5] += b1 * b2; ata[6] += b1 * b3;
-            ata[7] += b2 * b2; ata[8] += b2 * b3; ata[9] += b3 * b3;
-            atb[0] += b0 * v; atb[1] += b1 * v; atb[2] += b2 * v; atb[3] += b3 * v;
+            double u = tau / scale, v = x[k];
+            double b[6] = {e * si, e * co, u * e * si, u * e * co, 1.0, u};
+            for (int i = 0; i < nb; i++) {
+                atb[i] += b[i] * v;
+                for (int j = i; j < nb; j++)
+                    ata[i * nb + j] += b[i] * b[j];
+            }
             used++;
         }
         /* recurrences instead of exp/sin/cos per sample; drift is far below 1e-12 here */
@@ -50,21 +49,23 @@ static int fit4(const float *x, size_t k0, size_t k1, const seg_clip *clips, siz
         e *= de;
         tau += 1.0;
     }
-    if (used < 8)
+    if (used < 8 + (size_t)nb)
         return -1;
-    double m[16] = {ata[0], ata[1], ata[2], ata[3], ata[1], ata[4], ata[5], ata[6],
-                    ata[2], ata[5], ata[7], ata[8], ata[3], ata[6], ata[8], ata[9]};
-    return spd_solve(m, atb, c, 4);
+    for (int i = 0; i < nb; i++)
+        for (int j = 0; j < i; j++)
+            ata[i * nb + j] = ata[j * nb + i];
+    return spd_solve(ata, atb, c, (size_t)nb);
 }
 
 int seg_model_zero(const float *x, size_t k0, size_t k1, const seg_clip *clips, size_t nclips,
-                   double t_b, double w, double a, double *zero)
+                   double t_b, double w, double a, int offset, double *zero)
 {
     if (k1 <= k0 + 8 || !(w > 0) || !isfinite(t_b))
         return -1;
-    double scale = (double)(k1 - k0), c[4];
+    double scale = (double)(k1 - k0), c[6] = {0};
+    int nb = offset ? 5 : 4;
     for (int it = 0; it < 4; it++) {
-        if (fit4(x, k0, k1, clips, nclips, t_b, w, a, scale, c) != 0)
+        if (fit4(x, k0, k1, clips, nclips, t_b, w, a, scale, nb, c) != 0)
             return -1;
         /* c3, c4 are the first-order corrections of w and a: update the priors and refit
          * (Gauss-Newton on the damped sine, parameters linear in c1, c2) */
@@ -82,10 +83,12 @@ int seg_model_zero(const float *x, size_t k0, size_t k1, const seg_clip *clips, 
     /* zero of (c1 + c3 u) sin(w tau) + (c2 + c4 u) cos(w tau) nearest tau = 0 */
     double tau = 0;
     for (int it = 0; it < 20; it++) {
-        double u = tau / scale, s = sin(w * tau), co = cos(w * tau);
-        double f = (c[0] + c[2] * u) * s + (c[1] + c[3] * u) * co;
-        double fp = c[2] / scale * s + (c[0] + c[2] * u) * w * co + c[3] / scale * co -
+        double u = tau / scale, s = sin(w * tau), co = cos(w * tau), e = exp(-a * tau);
+        /* the full model, decay and offset included */
+        double h = (c[0] + c[2] * u) * s + (c[1] + c[3] * u) * co;
+        double hp = c[2] / scale * s + (c[0] + c[2] * u) * w * co + c[3] / scale * co -
                     (c[1] + c[3] * u) * w * s;
+        double f = e * h + c[4] + c[5] * u, fp = e * (hp - a * h) + c[5] / scale;
         if (fp == 0)
             return -1;
         double step = f / fp, lim = 0.1 / w;

@@ -172,12 +172,14 @@ static void classify_gap(const float *x, seg_run *a, seg_run *b)
         return;
     }
     /* a straight crossing: a line through the band and a few samples either side */
-    size_t gap = b->i0 - a->i1, h = gap / 2 < 2 ? 2 : gap / 2;
+    /* near a zero the sine is straight (its curvature vanishes there), so the line may
+     * reach well past the band: more samples, less noise, no visible bias */
+    size_t gap = b->i0 - a->i1, h = gap < 16 ? 16 : gap;
     size_t la = a->i1 - a->i0 + 1, lb = b->i1 - b->i0 + 1;
-    if (h > la / 4 + 1)
-        h = la / 4 + 1;
-    if (h > lb / 4 + 1)
-        h = lb / 4 + 1;
+    if (h > la / 8 + 1)
+        h = la / 8 + 1;
+    if (h > lb / 8 + 1)
+        h = lb / 8 + 1;
     size_t k0 = a->i1 + 1 >= h ? a->i1 + 1 - h : 0, k1 = b->i0 + h - 1;
     double z;
     if (seg_line_zero(x, k0, k1, &z, NULL) != 0 || z < lo || z > hi)
@@ -231,7 +233,9 @@ tf_status seg_runs_from_excursions(const float *x, size_t n, double band, const 
         /* capture edges: a lobe cut by the record start or end is partial */
         seg_run *f = &r[0], *l = &r[runs->n - 1];
         double zs = edge_zero(x, f, 0);
-        if (f->i0 > 0 && zs > 1.0 && (double)f->i0 - zs < 0.5 * zs) {
+        if (f->i0 > 0 && ((zs > 1.0 && (double)f->i0 - zs < 0.5 * zs) ||
+                          (zs > -1.0 && fabsf(x[0]) <= band))) {
+            /* a rest before the lobe, or a record that starts at the firing itself */
             f->k_start = SEG_B_DEAD;
             f->t_start = zs < 0 ? 0 : zs;
         } else {

@@ -99,7 +99,7 @@ static tf_device thy(const segw_cfg *c, int upper)
     if (c->topo == TF_TOPO_FULL_BRIDGE)
         return upper ? TF_DEV_T1T2 : TF_DEV_T3T4;
     if (c->topo == TF_TOPO_RING_DOWN)
-        return TF_DEV_RING;
+        return TF_DEV_T1;
     return upper ? TF_DEV_T1 : TF_DEV_T2;
 }
 
@@ -108,7 +108,7 @@ static tf_device dio(const segw_cfg *c, int upper)
     if (c->topo == TF_TOPO_FULL_BRIDGE)
         return upper ? TF_DEV_D1D2 : TF_DEV_D3D4;
     if (c->topo == TF_TOPO_RING_DOWN)
-        return TF_DEV_RING;
+        return TF_DEV_D1;
     return upper ? TF_DEV_D1 : TF_DEV_D2;
 }
 
