@@ -476,6 +476,55 @@ static void test_import_wav_dispatch_and_rate(void **state)
     tf_capture_destroy(cap);
 }
 
+static void progress_cb(void *ctx, double fraction)
+{
+    double *last = ctx;
+    assert_true(fraction > last[0] && fraction <= 1.0); /* increasing, never past 1 */
+    last[0] = fraction;
+    last[1] += 1;
+}
+
+static void test_import_wav_more_formats(void **state)
+{
+    (void)state;
+    /* 8-bit unsigned PCM, AIFF (big-endian "FORM") and W64 ("riff") through
+     * tf_import_file's dispatch; RMS of a sine A / sqrt(2) (textbook), to the
+     * coarser 8-bit step */
+    struct { const char *name, *args, *format, *sub; double amp, tol; } f[] = {
+        {"u8.wav", "-r 8000 -c 1 -b 8 -e unsigned-integer synth 1 sine 100 vol 0.5", "wav",
+         "PCM_U8", 0.5, 5e-3},
+        {"s.aiff", "-r 8000 -c 2 -b 16 synth 1 sine 100 vol 0.25", "aiff", "PCM_16", 0.25, 1e-3},
+        {"s.w64", "-r 8000 -c 1 -b 24 synth 1 sine 100 vol 0.9", "w64", "PCM_24", 0.9, 1e-3},
+    };
+    for (int k = 0; k < 3; k++) {
+        const char *p = sox(f[k].name, f[k].args);
+        tf_capture *cap = NULL;
+        tf_error err;
+        double last[2] = {0, 0};
+        tf_import_options o;
+        tf_import_options_init(&o);
+        o.progress = progress_cb;
+        o.progress_ctx = last;
+        assert_int_equal(tf_import_file(p, &o, &cap, &err), TF_OK);
+        assert_string_equal(cap->dialect.format, f[k].format);
+        assert_string_equal(cap->dialect.wav_subformat, f[k].sub);
+        assert_int_equal(cap->n, 8000);
+        assert_true(fabs(rms_of(cap->ch[0].samples, cap->n) - f[k].amp / sqrt(2.0)) < f[k].tol);
+        assert_true(last[0] == 1.0 && last[1] >= 1); /* progress reached the end */
+        tf_capture_destroy(cap);
+    }
+    /* quiet_progress silences the callback */
+    double last[2] = {0, 0};
+    tf_import_options o;
+    tf_import_options_init(&o);
+    o.progress = progress_cb;
+    o.progress_ctx = last;
+    o.quiet_progress = 1;
+    tf_capture *cap = load(tf_test_tmpfile("s.w64"), &o);
+    assert_true(last[1] == 0);
+    tf_capture_destroy(cap);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -487,6 +536,7 @@ int main(void)
         cmocka_unit_test(test_import_wav_bad_files),
         cmocka_unit_test(test_import_wav_non_finite),
         cmocka_unit_test(test_import_wav_dispatch_and_rate),
+        cmocka_unit_test(test_import_wav_more_formats),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
