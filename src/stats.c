@@ -32,6 +32,10 @@
  * (see docs/inspect.md). */
 #define TF_CLIP_MIN_RUN 3
 #define TF_CLIP_RATIO 5
+/* Neighbouring runs longer than this mean the trace is exactly flat beside the
+ * run too: a noise-free record (a bridge voltage with dead zones), whose
+ * plateaus are levels, not a rail. A real trace is noisy off the rail. */
+#define TF_CLIP_MAX_NEIGHBOUR 16
 
 /* Levels a range may span for the data to count as visibly quantised
  * (scopes store 8 to 16 bits). */
@@ -293,7 +297,8 @@ TF_NOINLINE static int block_touches(const float *x, float lo, float hi)
 }
 
 /* Runs at lo or hi count as clipped when long and much longer than their
- * neighbours (TF_CLIP_MIN_RUN, TF_CLIP_RATIO). Samples away from the
+ * neighbours, which must be short (TF_CLIP_MIN_RUN, TF_CLIP_RATIO,
+ * TF_CLIP_MAX_NEIGHBOUR). Samples away from the
  * extremes are skipped 16 at a time with a branch-free test. */
 static void clipping(const float *x, size_t n, float lo, float hi, tf_channel_stats *out)
 {
@@ -313,7 +318,7 @@ static void clipping(const float *x, size_t n, float lo, float hi, tf_channel_st
         size_t before = k > 0 ? run_back(x, k - 1) : 0;
         size_t after = k + len < n ? run_fwd(x, n, k + len) : 0;
         size_t nb = before > after ? before : after;
-        if (len >= TF_CLIP_MIN_RUN && len >= TF_CLIP_RATIO * nb) {
+        if (len >= TF_CLIP_MIN_RUN && len >= TF_CLIP_RATIO * nb && nb <= TF_CLIP_MAX_NEIGHBOUR) {
             out->clipped_samples += len;
             out->clipped_runs++;
             if (x[k] == hi)

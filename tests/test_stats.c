@@ -157,6 +157,16 @@ static void test_stats_lsb_quantised(void **state)
                                         3e-3 * gauss()) / lsb));
     tf_stats_compute(x, n, &s);
     assert_true(tf_test_reldiff(s.lsb, lsb) < 1e-6);
+    /* a noise-free quasi-square wave, +V for 170 of every 180 degrees, 0 between
+     * (a bridge voltage with short dead zones): its plateaus are levels beside
+     * other exact levels, not a trace sitting on a rail */
+    for (size_t k = 0; k < n; k++) {
+        size_t ph = k % 3600; /* 0.1 degree per sample */
+        x[k] = ph < 50 || (ph >= 1750 && ph < 1850) || ph >= 3550 ? 0.0f
+               : ph < 1800 ? 300.0f : -300.0f;
+    }
+    tf_stats_compute(x, n, &s);
+    assert_int_equal(s.clipped_samples, 0);
     /* two levels only (a noise-free square wave): not a quantisation step */
     for (size_t k = 0; k < n; k++)
         x[k] = (k / 100) % 2 ? 200.0f : -200.0f;
