@@ -521,6 +521,19 @@ static void test_spectrum_hann_window(void **state)
     }
     tf_spectrum_free(r);
     tf_capture_destroy(cap);
+
+    /* a voltage probe 400 ns late, corrected: the current's phases against the
+     * voltage's fundamental are those of the signals' definitions */
+    cap = two_channel_capture(f, 9, 30, 400e-9);
+    o.skew_s = 400e-9; /* uncorrected, phases would be off by 0.015 h rad */
+    r = run(cap, &roles, NULL, &o);
+    harmonic_signal i = test_current(f, 9);
+    for (int h = 1; h <= 5; h++) {
+        const double ph = wrap_rad(i.ph[h] - h * v.ph[1]);
+        assert_true(fabs(wrap_rad(r->ch[0].harm[h - 1].phase_deg * M_PI / 180.0 - ph)) < 1e-2);
+    }
+    tf_spectrum_free(r);
+    tf_capture_destroy(cap);
 }
 
 /* ---- power -------------------------------------------------------------------------- */
@@ -865,6 +878,26 @@ static void test_spectrum_errors(void **state)
     tf_roles none = roles_of(-1, -1, -1);
     assert_int_equal(tf_spectrum_run(cap, &none, NULL, NULL, &r, &err), TF_ERR_DATA);
     assert_null(r);
+
+    /* the smallest capture: 8 samples, one period of a cosine (source: the DFT
+     * of cos(2 pi k / 8) has amplitude 1 at bin 1) */
+    tf_capture *tiny = new_capture(1, 8, 1.0, 0.0);
+    for (size_t k = 0; k < 8; k++)
+        tiny->ch[0].samples[k] = (float)cos(2.0 * M_PI * (double)k / 8.0);
+    tf_roles r0 = roles_of(0, -1, -1);
+    tf_spectrum_options_init(&o);
+    o.fundamental_hz = 0.125;
+    r = run(tiny, &r0, NULL, &o);
+    assert_int_equal(r->periods, 1);
+    assert_int_equal(r->samples_per_period, 8);
+    assert_int_equal(r->harmonics, 3);
+    assert_true(fabs(r->ch[0].harm[0].amplitude - 1.0) < 1e-7);
+    assert_true(r->ch[0].harm[1].amplitude < 1e-7);
+    tf_spectrum_free(r);
+    /* too short to estimate a fundamental from: a data error */
+    assert_int_equal(tf_spectrum_run(tiny, &r0, NULL, NULL, &r, &err), TF_ERR_DATA);
+    assert_null(r);
+    tf_capture_destroy(tiny);
 
     /* H is capped by Nyquist and says so: 1 MHz at 10 MS/s allows h <= 4 */
     tf_spectrum_options_init(&o);
