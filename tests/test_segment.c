@@ -11,6 +11,7 @@
 #include <tankfit/tankfit.h>
 
 #include "segment_wave.h"
+#include "spice.h"
 
 static tf_roles roles_for(const tf_capture *cap)
 {
@@ -724,6 +725,97 @@ static void test_segment_sim_commutation_failure(void **state)
     sim_free(&c);
 }
 
+/* ngspice simulates the same half-bridge from its netlist (an independent circuit
+ * simulator): the lobes the segmenter finds on its capture must sit on ngspice's own
+ * current zeros, and the turn-off time available must match them. */
+static void test_segment_ngspice_reference(void **state)
+{
+    (void)state;
+    if (!tf_spice_available()) {
+        skip();
+        return;
+    }
+    const char *text = sim_design("half-bridge", "6 kHz", "20 us", "", "");
+    tf_design *d = malloc(sizeof *d);
+    assert_non_null(d);
+    tf_error err;
+    assert_int_equal(tf_design_parse(text, strlen(text), "spice.ini", d, &err), TF_OK);
+    d->duration_s = 1.2e-3;
+    tf_spice_options so;
+    tf_spice_options_init(&so);
+    so.name = "segment_stage";
+    so.max_step_s = 50e-9; /* keeps ngspice to a few seconds */
+    tf_capture *cap = NULL;
+    char msg[512];
+    if (tf_spice_run(d, &so, &cap, msg, sizeof msg) != 0) {
+        print_message("ngspice: %s\n", msg);
+        fail();
+    }
+    tf_roles roles = roles_for(cap);
+    for (int g = 0; g < 4; g++)
+        roles.gate[g] = -1;
+    roles.current = tf_capture_find(cap, "i_load");
+    assert_true(roles.current >= 0);
+    tf_segment_result *r = NULL;
+    assert_int_equal(tf_segment_run(cap, &roles, NULL, &r, &err), TF_OK);
+    assert_int_equal(r->topology, TF_TOPO_HALF_BRIDGE);
+    assert_int_equal(r->mode, TF_MODE_NON_OVERLAPPING);
+    /* reference: ngspice current zeros, from crossings of +/-0.2 % of the peak moved back
+     * to zero along the local slope */
+    const float *x = cap->ch[roles.current].samples;
+    double dt = cap->dt_s, peak = 0;
+    for (size_t k = 0; k < cap->n; k++)
+        peak = fmax(peak, fabs((double)x[k]));
+    double level = 2e-3 * peak, t[512];
+    int dir[512];
+    size_t nc = tf_spice_crossings(x, cap->n, cap->t0_s, dt, level, t, dir, 512);
+    assert_true(nc > 10 && nc < 512);
+    size_t checked = 0;
+    for (size_t i = 0; i + 1 < nc; i++) {
+        int pos = dir[i] == 1 && dir[i + 1] == -1, neg = dir[i] == 2 && dir[i + 1] == -2;
+        if (!pos && !neg)
+            continue;
+        double z[2];
+        for (int e = 0; e < 2; e++) {
+            size_t k = (size_t)floor((t[i + e] - cap->t0_s) / dt);
+            double slope = fabs((double)x[k + 1] - (double)x[k]) / dt;
+            z[e] = t[i + e] + (e ? 1 : -1) * level / slope;
+        }
+        if (z[0] < 5e-6 || z[1] > cap->t0_s + (double)cap->n * dt - 5e-6)
+            continue;
+        const tf_lobe *l = NULL;
+        for (size_t j = 0; j < r->nlobes && !l; j++)
+            if (fabs(r->lobes[j].start_s - z[0]) < 5e-6)
+                l = &r->lobes[j];
+        assert_non_null(l);
+        assert_int_equal(l->sign, pos ? 1 : -1);
+        print_message("lobe at %.9f: %+.3f / %+.3f samples against ngspice\n", z[0],
+                      (l->start_s - z[0]) / dt, (l->end_s - z[1]) / dt);
+        /* within one sample: ngspice's thyristor is a switch with a latch and a real
+         * diode, whose turn-on is not the ideal step from zero the burst model assumes
+         * (measured here: up to about 0.7 sample at a firing, 0.05 at a natural zero) */
+        assert_true(fabs(l->start_s - z[0]) <= 1.0 * dt);
+        assert_true(fabs(l->end_s - z[1]) <= 1.0 * dt);
+        /* a diode lobe's duration is the turn-off time available to the thyristor before */
+        if (!tf_device_is_thyristor(l->device)) {
+            int found = 0;
+            for (size_t c = 0; c < r->ncycles; c++)
+                if (r->cycles[c].lobe_diode == (size_t)(l - r->lobes)) {
+                    double want = z[1] - z[0];
+                    assert_true(fabs(r->cycles[c].turnoff_available_s - want) <= dt + 0.005 * want);
+                    found = 1;
+                }
+            assert_true(found);
+        }
+        checked++;
+    }
+    print_message("ngspice: %zu lobes checked\n", checked);
+    assert_true(checked >= 10);
+    tf_segment_free(r);
+    tf_capture_destroy(cap);
+    free(d);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -747,6 +839,7 @@ int main(void)
         cmocka_unit_test(test_segment_sim_single_switch),
         cmocka_unit_test(test_segment_sim_ring_down),
         cmocka_unit_test(test_segment_sim_commutation_failure),
+        cmocka_unit_test(test_segment_ngspice_reference),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
