@@ -3,6 +3,7 @@
 
 #include <csv.h>
 #include <ctype.h>
+#include <float.h>
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -424,8 +425,11 @@ static size_t head_times(const head *h, tf_csv_layout *lay, size_t first, size_t
             sig = tf_csv_sig_digits(&nt[k]);
     }
     lay->time_sig = fixed ? 0 : sig;
-    for (size_t k = 0; k < n; k++)
+    for (size_t k = 0; k < n; k++) { /* as tf_time_acc_add: never below 4 ulp of the value */
         q[k] = tf_csv_resolution(&nt[k], lay->time_sig) * lay->cols[col].factor;
+        if (q[k] < 4.0 * DBL_EPSILON * fabs(t[k]))
+            q[k] = 4.0 * DBL_EPSILON * fabs(t[k]);
+    }
     return n;
 }
 

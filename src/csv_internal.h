@@ -87,6 +87,12 @@ void tf_csv_scan_number(const char *s, size_t len, char decimal, tf_num_text *nt
  * in the last of those digits if that is coarser. Zero has resolution 0. */
 double tf_csv_resolution(const tf_num_text *nt, int sig_digits);
 
+/* A time field: its value (correctly rounded, as tf_parse_field) and its
+ * resolution (as tf_csv_resolution) in one pass. Returns 0, or -1 when the
+ * field is not one number. */
+int tf_csv_time_value(const char *s, size_t len, char decimal, int sig_digits, double *value,
+                      double *q);
+
 /* Significant digits printed (0 for zero). */
 int tf_csv_sig_digits(const tf_num_text *nt);
 
@@ -101,7 +107,7 @@ typedef struct tf_time_block {
     double hi, lo;                 /* max(u - q/2), min(u + q/2) over the block */
     double hi_t, lo_t;             /* the time values where they occur */
     size_t hi_line, lo_line;
-    size_t k0, k1;                 /* first and last local index */
+    size_t hi_k, lo_k;             /* their local row indices */
 } tf_time_block;
 
 /* Streaming accumulator of one parser thread: u_k = t_k - (t_first + k * d_ref). */

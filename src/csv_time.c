@@ -1,11 +1,20 @@
 /* CSV time base: streaming least-squares fit of t0/dt, checked against the printing resolution. */
 #include "csv_internal.h"
+#include "numparse.h"
 
 #include <float.h>
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+
+static double pow10i(long k)
+{
+    static const double t[] = {1e-40, 1e-39, 1e-38, 1e-37, 1e-36, 1e-35, 1e-34, 1e-33, 1e-32, 1e-31, 1e-30, 1e-29, 1e-28, 1e-27, 1e-26, 1e-25, 1e-24, 1e-23, 1e-22, 1e-21, 1e-20, 1e-19, 1e-18, 1e-17, 1e-16, 1e-15, 1e-14, 1e-13, 1e-12, 1e-11, 1e-10, 1e-9, 1e-8, 1e-7, 1e-6, 1e-5, 1e-4, 1e-3, 1e-2, 1e-1, 1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22, 1e23, 1e24, 1e25, 1e26, 1e27, 1e28, 1e29, 1e30, 1e31, 1e32, 1e33, 1e34, 1e35, 1e36, 1e37, 1e38, 1e39, 1e40};
+    if (k >= -40 && k <= 40)
+        return t[k + 40];
+    return pow(10.0, (double)k);
+}
 
 void tf_csv_scan_number(const char *s, size_t len, char decimal, tf_num_text *nt)
 {
@@ -46,22 +55,69 @@ void tf_csv_scan_number(const char *s, size_t len, char decimal, tf_num_text *nt
     nt->lead = lead + nt->exp;
 }
 
-static double pow10i(long k)
-{
-    static const double t[] = {1e-40, 1e-39, 1e-38, 1e-37, 1e-36, 1e-35, 1e-34, 1e-33, 1e-32, 1e-31, 1e-30, 1e-29, 1e-28, 1e-27, 1e-26, 1e-25, 1e-24, 1e-23, 1e-22, 1e-21, 1e-20, 1e-19, 1e-18, 1e-17, 1e-16, 1e-15, 1e-14, 1e-13, 1e-12, 1e-11, 1e-10, 1e-9, 1e-8, 1e-7, 1e-6, 1e-5, 1e-4, 1e-3, 1e-2, 1e-1, 1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22, 1e23, 1e24, 1e25, 1e26, 1e27, 1e28, 1e29, 1e30, 1e31, 1e32, 1e33, 1e34, 1e35, 1e36, 1e37, 1e38, 1e39, 1e40};
-    if (k >= -40 && k <= 40)
-        return t[k + 40];
-    return pow(10.0, (double)k);
-}
-
 double tf_csv_resolution(const tf_num_text *nt, int sig_digits)
 {
     if (!nt->nonzero) /* zero: %g and %e print an exact zero, whatever the digits */
         return 0;
     long last = nt->exp - nt->frac; /* exponent of the last printed digit */
-    if (sig_digits > 0 && nt->lead - sig_digits + 1 > last)
+    if (sig_digits > 0 && nt->lead - sig_digits + 1 < last)
         last = nt->lead - sig_digits + 1;
     return pow10i(last);
+}
+
+int tf_csv_time_value(const char *s, size_t len, char decimal, int sig_digits, double *value,
+                      double *q)
+{
+    /* one pass for the value (Clinger's fast path, as tf_parse_field) and the
+     * printed form; anything unusual goes through the general parser */
+    size_t i = 0;
+    int neg = 0, eneg = 0;
+    if (len && (s[0] == '-' || s[0] == '+'))
+        neg = s[i++] == '-';
+    uint64_t m = 0;
+    size_t d0 = i;
+    while (i < len && (unsigned)(s[i] - '0') < 10)
+        m = m * 10 + (uint64_t)(s[i++] - '0');
+    size_t nint = i - d0, nfrac = 0;
+    if (i < len && s[i] == decimal) {
+        size_t f0 = ++i;
+        while (i < len && (unsigned)(s[i] - '0') < 10)
+            m = m * 10 + (uint64_t)(s[i++] - '0');
+        nfrac = i - f0;
+    }
+    long x = 0;
+    if (i < len && (s[i] == 'e' || s[i] == 'E') && i + 1 < len) {
+        i++;
+        if (s[i] == '-' || s[i] == '+')
+            eneg = s[i++] == '-';
+        size_t x0 = i;
+        for (; i < len && (unsigned)(s[i] - '0') < 10 && x < 1000; i++)
+            x = x * 10 + (s[i] - '0');
+        if (i == x0)
+            i = len + 1; /* no exponent digits: not a plain number */
+    }
+    size_t nd = nint + nfrac;
+    long e = (eneg ? -x : x) - (long)nfrac;
+    if (i != len || nd == 0 || nd > 15 || e < -22 || e > 22 || m == 0) {
+        tf_num_text nt;
+        if (tf_parse_field(s, len, decimal, value) != 0)
+            return -1;
+        tf_csv_scan_number(s, len, decimal, &nt);
+        *q = tf_csv_resolution(&nt, sig_digits);
+        return 0;
+    }
+    double v = (double)m;
+    v = e < 0 ? v / tf_pow10_exact[-e] : v * tf_pow10_exact[e];
+    *value = neg ? -v : v;
+    /* m != 0 has nd10 = number of digits of m; its lead digit sits at e + nd10 - 1 */
+    long nd10 = 1;
+    for (uint64_t t = m; t >= 10; t /= 10)
+        nd10++;
+    long last = e, lead = e + nd10 - 1;
+    if (sig_digits > 0 && lead - sig_digits + 1 < last)
+        last = lead - sig_digits + 1;
+    *q = pow10i(last);
+    return 0;
 }
 
 int tf_csv_sig_digits(const tf_num_text *nt)
@@ -142,19 +198,19 @@ int tf_time_acc_add(tf_time_acc *a, double t, double q, size_t line, char *msg,
         tf_time_block *nb = &a->blocks[a->nblocks++];
         nb->hi = -HUGE_VAL;
         nb->lo = HUGE_VAL;
-        nb->k0 = k;
     }
     tf_time_block *blk = &a->blocks[b];
-    blk->k1 = k;
     if (u - 0.5 * q > blk->hi) {
         blk->hi = u - 0.5 * q;
         blk->hi_t = t;
         blk->hi_line = line;
+        blk->hi_k = k;
     }
     if (u + 0.5 * q < blk->lo) {
         blk->lo = u + 0.5 * q;
         blk->lo_t = t;
         blk->lo_line = line;
+        blk->lo_k = k;
     }
     a->t_prev = t;
     a->q_prev = q;
@@ -163,17 +219,19 @@ int tf_time_acc_add(tf_time_acc *a, double t, double q, size_t line, char *msg,
 }
 
 /* Check every block of one part against the fitted line alpha + beta*K (in u
- * space); returns the first offending block's line (0 when all pass). */
+ * space) at the rows of its extreme deviations from the reference line; the
+ * fitted line differs from the reference by beta (tiny) per row, so another
+ * row of the block can exceed these by at most |beta| * TF_TIME_BLOCK, far
+ * below the resolution. Returns the first offending block's line (0 when all
+ * pass). */
 static size_t check_blocks(const tf_time_acc *a, size_t base, double shift, double alpha,
                            double beta, double half_q, double *bad_t, double *bad_off)
 {
     for (size_t b = 0; b < a->nblocks; b++) {
         const tf_time_block *blk = &a->blocks[b];
-        double l0 = alpha + beta * (double)(base + blk->k0);
-        double l1 = alpha + beta * (double)(base + blk->k1);
-        double lmin = l0 < l1 ? l0 : l1, lmax = l0 < l1 ? l1 : l0;
-        double over = blk->hi + shift - lmin;   /* > half_q: too late */
-        double under = blk->lo + shift - lmax;  /* < -half_q: too early */
+        double over = blk->hi + shift - (alpha + beta * (double)(base + blk->hi_k));
+        double under = blk->lo + shift - (alpha + beta * (double)(base + blk->lo_k));
+        /* over > half_q: too late; under < -half_q: too early */
         size_t line = 0;
         if (over > half_q) {
             line = blk->hi_line;

@@ -12,13 +12,14 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <sys/mman.h>
 #include <sys/stat.h>
 #include <unistd.h>
 
 #include "csv_internal.h"
 #include "numparse.h"
 
-#define CHUNK ((size_t)1 << 20)          /* bytes handed to libcsv per call */
+#define CHUNK ((size_t)4 << 20)          /* bytes mapped and handed to libcsv per call */
 #ifndef TF_CSV_MIN_SPLIT                 /* smaller files use one thread (the fuzz */
 #define TF_CSV_MIN_SPLIT ((size_t)8 << 20) /* harness lowers it to reach both) */
 #endif
@@ -101,17 +102,16 @@ static void gap(csv_worker *w, int m, size_t c, const char *s, size_t len)
 static void time_field(csv_worker *w, size_t c, const char *s, size_t len)
 {
     const tf_csv_layout *lay = w->job->lay;
-    double v, f = lay->cols[c].factor;
+    double v, q, f = lay->cols[c].factor;
     char ex[64];
-    if (len == 0 || tf_parse_field(s, len, lay->decimal, &v) != 0 || !isfinite(v)) {
+    if (len == 0 || tf_csv_time_value(s, len, lay->decimal, lay->time_sig, &v, &q) != 0 ||
+        !isfinite(v)) {
         fail(w, TF_ERR_DATA, c + 1, "expected a time value (a finite number), found '%s'",
              tf_error_excerpt(ex, sizeof ex, s, (unsigned)len, TF_CSV_EXCERPT));
         return;
     }
-    tf_num_text nt;
-    tf_csv_scan_number(s, len, lay->decimal, &nt);
     w->t = v * f;
-    w->q = tf_csv_resolution(&nt, lay->time_sig) * f;
+    w->q = q * f;
     w->have_t = 1;
 }
 
@@ -209,34 +209,74 @@ static void on_row(int term, void *ctx)
     w->line++;
 }
 
+/* ---- a window of the file: mapped read-only (no copy), else read into a buffer ---- */
+
+typedef struct view {
+    const char *p;
+    size_t len;
+    void *map;
+    size_t map_len;
+    char *buf;                           /* fallback buffer (CHUNK bytes), made on demand */
+} view;
+
+/* Make [off, off + len) readable at v->p; len <= CHUNK and within the file.
+ * Mapping one window at a time keeps the file's pages out of the resident set
+ * once passed (they stay in the page cache). Returns 0 or -1 on a read error. */
+static int view_get(const tf_csv_source *src, size_t off, size_t len, view *v)
+{
+    v->map = NULL;
+    v->len = len;
+    if (src->fd < 0) {
+        v->p = (const char *)src->mem + off;
+        return 0;
+    }
+    size_t page = (size_t)sysconf(_SC_PAGESIZE), a = off - off % page;
+    void *m = mmap(NULL, len + (off - a), PROT_READ, MAP_PRIVATE | MAP_POPULATE, src->fd,
+                   (off_t)a);
+    if (m != MAP_FAILED) {
+        v->map = m;
+        v->map_len = len + (off - a);
+        v->p = (const char *)m + (off - a);
+        return 0;
+    }
+    if (!v->buf && !(v->buf = malloc(CHUNK)))
+        return -1;
+    if (tf_csv_read(src, off, v->buf, len) != (ssize_t)len)
+        return -1;
+    v->p = v->buf;
+    return 0;
+}
+
+static void view_put(view *v)
+{
+    if (v->map)
+        munmap(v->map, v->map_len);
+    v->map = NULL;
+}
+
 /* ---- the two passes over a part: count line ends, then parse ---- */
 
 static void *count_part(void *arg)
 {
     csv_worker *w = arg;
-    char *buf = malloc(CHUNK);
     char term = w->job->lay->term;
-    if (!buf) {
-        w->status = TF_ERR_NOMEM;
-        snprintf(w->msg, sizeof w->msg, "out of memory");
-        return NULL;
-    }
+    view v = {0};
     for (size_t off = w->begin; off < w->end;) {
         size_t want = w->end - off < CHUNK ? w->end - off : CHUNK;
-        ssize_t got = tf_csv_read(w->job->src, off, buf, want);
-        if (got <= 0) {
+        if (view_get(w->job->src, off, want, &v) != 0) {
             w->status = TF_ERR_IO;
             snprintf(w->msg, sizeof w->msg, "%s: cannot read at byte %zu", w->job->src->path, off);
             break;
         }
         size_t n = 0;
-        for (ssize_t i = 0; i < got; i++)
-            n += buf[i] == term;
+        for (size_t i = 0; i < want; i++)
+            n += v.p[i] == term;
         w->terms += n;
-        w->quotes |= memchr(buf, '"', (size_t)got) != NULL;
-        off += (size_t)got;
+        w->quotes |= memchr(v.p, '"', want) != NULL;
+        view_put(&v);
+        off += want;
     }
-    free(buf);
+    free(v.buf);
     return NULL;
 }
 
@@ -253,9 +293,8 @@ static void *parse_part(void *arg)
     csv_worker *w = arg;
     csv_job *job = w->job;
     struct csv_parser p;
-    char *buf = malloc(CHUNK);
-    if (!buf || csv_init(&p, CSV_REPALL_NL) != 0) {
-        free(buf);
+    view v = {0};
+    if (csv_init(&p, CSV_REPALL_NL) != 0) {
         w->status = TF_ERR_NOMEM;
         snprintf(w->msg, sizeof w->msg, "out of memory");
         return NULL;
@@ -267,23 +306,23 @@ static void *parse_part(void *arg)
         if (!w->first && atomic_load(&job->abort))
             break;
         size_t want = w->end - off < CHUNK ? w->end - off : CHUNK;
-        ssize_t got = tf_csv_read(job->src, off, buf, want);
-        if (got <= 0) {
+        if (view_get(job->src, off, want, &v) != 0) {
             fail(w, TF_ERR_IO, 1, "cannot read the file at byte %zu", off);
             break;
         }
-        size_t used = csv_parse(&p, buf, (size_t)got, on_field, on_row, w);
-        if (used != (size_t)got && !w->status)
+        size_t used = csv_parse(&p, v.p, want, on_field, on_row, w);
+        view_put(&v);
+        if (used != want && !w->status)
             fail(w, TF_ERR_DATA, w->col + 1,
                  "expected fields of at most 1 MiB, found a longer one (lines longer than "
                  "1 MiB are not accepted)");
-        off += (size_t)got;
-        report_progress(w, (size_t)got);
+        off += want;
+        report_progress(w, want);
     }
     if (!w->status)
         csv_fini(&p, on_field, on_row, w);
     csv_free(&p);
-    free(buf);
+    free(v.buf);
     if (w->status && w->first)
         atomic_store(&job->abort, 1);
     return NULL;

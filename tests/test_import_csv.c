@@ -267,6 +267,50 @@ static void test_import_csv_time_errors(void **state)
                       "onerow.csv:2:1: expected at least 2 data rows");
 }
 
+static void test_import_csv_time_resolution(void **state)
+{
+    (void)state;
+    /* worked examples: one unit in the last printed digit, or in the P-th
+     * significant digit when the column shows P (as %g drops trailing zeros) */
+    static const struct {
+        const char *text;
+        int sig;
+        double q;
+    } cases[] = {
+        {"1.2340e-05", 0, 1e-9}, {"12", 0, 1}, {"0.000123", 0, 1e-6}, {"1e-06", 0, 1e-6},
+        {"1e-06", 8, 1e-13},     {"-5.0000000e-01", 8, 1e-8}, {"0", 8, 0}, {"0.000", 0, 0},
+        {"1,25", 0, 1e-2},       {"123456789", 3, 1}, {"9.99e2", 3, 1},
+    };
+    for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
+        char dec = strchr(cases[i].text, ',') ? ',' : '.';
+        double v, q;
+        tf_num_text nt;
+        assert_int_equal(tf_csv_time_value(cases[i].text, strlen(cases[i].text), dec,
+                                           cases[i].sig, &v, &q), 0);
+        tf_csv_scan_number(cases[i].text, strlen(cases[i].text), dec, &nt);
+        double q2 = tf_csv_resolution(&nt, cases[i].sig);
+        if (fabs(q - cases[i].q) > 1e-6 * cases[i].q || q2 != q)
+            fail_msg("'%s' (P=%d): q %g / %g, expected %g", cases[i].text, cases[i].sig, q, q2,
+                     cases[i].q);
+    }
+    /* the one-pass time parser against strtod (reference: C library strtod,
+     * correctly rounded, in the default C locale) and the two-pass resolution */
+    unsigned seed = 12345;
+    for (int i = 0; i < 100000; i++) {
+        char buf[64];
+        seed = seed * 1103515245u + 12345u;
+        double x = ((double)(seed >> 8) / 16777216.0 - 0.5) * pow(10, (int)(seed % 13) - 9);
+        snprintf(buf, sizeof buf, (seed & 64) ? "%.*e" : "%.*f", 1 + (int)((seed >> 3) % 12), x);
+        double v, q;
+        tf_num_text nt;
+        assert_int_equal(tf_csv_time_value(buf, strlen(buf), '.', (int)(seed % 10), &v, &q), 0);
+        tf_csv_scan_number(buf, strlen(buf), '.', &nt);
+        if (v != strtod(buf, NULL) || q != tf_csv_resolution(&nt, (int)(seed % 10)))
+            fail_msg("'%s': %a (strtod %a), q %g (two-pass %g)", buf, v, strtod(buf, NULL), q,
+                     tf_csv_resolution(&nt, (int)(seed % 10)));
+    }
+}
+
 /* ---- bad-input corpus (tests/bad) ---- */
 
 static void test_import_csv_bad_corpus(void **state)
@@ -522,6 +566,7 @@ int main(void)
         cmocka_unit_test(test_import_csv_sample_rate_no_time),
         cmocka_unit_test(test_import_csv_time_few_digits),
         cmocka_unit_test(test_import_csv_time_errors),
+        cmocka_unit_test(test_import_csv_time_resolution),
         cmocka_unit_test(test_import_csv_bad_corpus),
         cmocka_unit_test(test_import_csv_bom_crlf_good_twin),
         cmocka_unit_test(test_import_csv_gaps),
