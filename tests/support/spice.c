@@ -7,6 +7,7 @@
 #include <string.h>
 
 #include "tf_test.h"
+#include <tankfit/synth.h>
 
 static int spice_fail(char *msg, size_t size, const char *fmt, ...)
 {
@@ -24,13 +25,14 @@ void tf_spice_options_init(tf_spice_options *o)
 {
     memset(o, 0, sizeof *o);
     o->vc0_v = NAN;
-    o->gate_width_s = 10e-6;
+    o->gate_width_s = 0; /* the simulator's: TF_SYNTH_GATE_WIDTH_S, at most a quarter period */
 }
 
 double tf_spice_default_vc0(const tf_design *d)
 {
     switch (d->topology) {
-    case TF_TOPO_RING_DOWN: return or0(d->precharge_v);
+    case TF_TOPO_HALF_BRIDGE: return d->split_capacitor ? 0.0 : 0.5 * or0(d->dc_link_v);
+    case TF_TOPO_RING_DOWN: return -or0(d->precharge_v);
     default: return 0.0;
     }
 }
@@ -109,7 +111,7 @@ int tf_spice_write_netlist(const tf_design *d, const tf_spice_options *o, const 
     double vc0 = isnan(o->vc0_v) ? tf_spice_default_vc0(d) : o->vc0_v;
     const char *cap_hi = "b", *cap_lo = "y";
     fprintf(f, "* tankfit reference netlist: %s stage\n", tf_topology_name(d->topology));
-    fprintf(f, ".model DNEAR D(IS=1e-12 N=0.05 RS=0 CJO=0)\n");
+    fprintf(f, ".model DNEAR D(IS=1e-12 N=0.1 RS=1e-3 CJO=0)\n");
     fprintf(f, ".model SWGATE sw(vt=0.5 vh=0.1 ron=1e-4 roff=1e9)\n");
     fprintf(f, ".model SWLATCH csw(it=0.2 ih=0.1 ron=1e-4 roff=1e9)\n");
     switch (d->topology) {
@@ -121,14 +123,16 @@ int tf_spice_write_netlist(const tf_design *d, const tf_spice_options *o, const 
         gate_source(f, d, 1, "g2", t_stop, o->gate_width_s);
         if (d->split_capacitor) {
             /* C/2 + C/2 from the link rails to the tank return y, charged to half the link */
-            fprintf(f, "L1 x a %.12g IC=0\nR1 a y %.12g\n", L, R > 0 ? R : 1e-9);
-            fprintf(f, "CA p y %.12g IC=%.12g\nCB y 0 %.12g IC=%.12g\n", C / 2, vdc / 2 - vc0,
-                    C / 2, vdc / 2 + vc0);
+            fprintf(f, "L1 x a %.12g\nR1 a y %.12g\n", L, R > 0 ? R : 1e-9);
+            fprintf(f, "CA p y %.12g\nCB y 0 %.12g\n.ic v(y)=%.12g\n", C / 2, C / 2,
+                    vdc / 2 + vc0);
+            /* an ideal source marks the link midpoint m: v_out and v_c are taken from it */
+            fprintf(f, "VM m 0 DC %.12g\n", vdc / 2);
             cap_hi = "y";
-            cap_lo = "0"; /* v_c below is reported as v(y) - vdc/2 by the reader */
+            cap_lo = "m";
         } else {
-            fprintf(f, "L1 x a %.12g IC=0\nR1 a b %.12g\nC1 b y %.12g IC=%.12g\nVY y 0 DC 0\n", L,
-                    R > 0 ? R : 1e-9, C, vc0);
+            fprintf(f, "L1 x a %.12g\nR1 a b %.12g\nC1 b y %.12g\nVY y 0 DC 0\n.ic v(b)=%.12g\n",
+                    L, R > 0 ? R : 1e-9, C, vc0);
         }
         break;
     case TF_TOPO_FULL_BRIDGE:
@@ -139,10 +143,11 @@ int tf_spice_write_netlist(const tf_design *d, const tf_spice_options *o, const 
         thyristor_pair(f, "4", "x", "0", "g2", vt, vd);
         gate_source(f, d, 0, "g1", t_stop, o->gate_width_s);
         gate_source(f, d, 1, "g2", t_stop, o->gate_width_s);
-        fprintf(f, "L1 x a %.12g IC=0\nR1 a b %.12g\nC1 b y %.12g IC=%.12g\n", L, R > 0 ? R : 1e-9,
-                C, vc0);
-        /* keep the bridge from floating while every device blocks */
-        fprintf(f, "RY y 0 1e9\nRX x 0 1e9\n");
+        fprintf(f, "L1 x a %.12g\nR1 a b %.12g\nC1 b y %.12g\n", L, R > 0 ? R : 1e-9, C);
+        /* while every device blocks both legs float: 100 kohm across each device (1.5 mA
+         * at 150 V) defines them, and they start shared evenly, as the simulator assumes */
+        fprintf(f, "RP1 p x 1e5\nRP2 y 0 1e5\nRP3 p y 1e5\nRP4 x 0 1e5\n");
+        fprintf(f, ".ic v(b)=%.12g v(y)=%.12g\n", 0.5 * (vdc + vc0), 0.5 * (vdc - vc0));
         break;
     case TF_TOPO_SINGLE: {
         double Lr = d->reset_inductance_h, Rr = or0(d->reset_resistance_ohm);
@@ -151,35 +156,39 @@ int tf_spice_write_netlist(const tf_design *d, const tf_spice_options *o, const 
         fprintf(f, "VDC p 0 DC %.12g\n", vdc);
         thyristor_pair(f, "1", "p", "x", "g1", vt, vd);
         gate_source(f, d, 0, "g1", t_stop, o->gate_width_s);
-        fprintf(f, "L1 x a %.12g IC=0\nR1 a b %.12g\nC1 b y %.12g IC=%.12g\nVY y 0 DC 0\n", L,
-                R > 0 ? R : 1e-9, C, vc0);
-        fprintf(f, "LR b r %.12g IC=0\nRR r 0 %.12g\n", Lr, Rr > 0 ? Rr : 1e-9);
+        fprintf(f, "L1 x a %.12g\nR1 a b %.12g\nC1 b y %.12g\nVY y 0 DC 0\n.ic v(b)=%.12g\n",
+                L, R > 0 ? R : 1e-9, C, vc0);
+        fprintf(f, "LR b r %.12g\nRR r 0 %.12g\n", Lr, Rr > 0 ? Rr : 1e-9);
         break;
     }
     case TF_TOPO_RING_DOWN:
         /* p is the capacitor's top; the coil returns to its bottom (0) */
         thyristor_pair(f, "1", "p", "x", "g1", vt, vd);
         gate_source(f, d, 0, "g1", t_stop, o->gate_width_s);
-        fprintf(f, "C1 p 0 %.12g IC=%.12g\nL1 x a %.12g IC=0\nR1 a 0 %.12g\n", C, vc0, L,
-                R > 0 ? R : 1e-9);
-        cap_hi = "p";
-        cap_lo = "0";
+        /* the simulator's v_c runs along the loop x - L - R - C: v(0) - v(p) = -precharge */
+        fprintf(f, "C1 p 0 %.12g\nL1 x a %.12g\nR1 a 0 %.12g\n.ic v(p)=%.12g\n", C, L,
+                R > 0 ? R : 1e-9, -vc0);
+        cap_hi = "0";
+        cap_lo = "p";
         break;
     default:
         return spice_fail(msg, msg_size, "spice: topology %s is not modelled",
                     tf_topology_name(d->topology));
     }
-    const char *yref = d->topology == TF_TOPO_RING_DOWN ? "0" : "y";
+    /* v_out: the level across the L-R-C chain (ring-down: from x round to p) */
+    const char *yref = d->topology == TF_TOPO_RING_DOWN ? "p" : "y";
     if (d->topology == TF_TOPO_HALF_BRIDGE && d->split_capacitor)
-        yref = "y";
-    fprintf(f, ".options method=gear reltol=1e-5 abstol=1e-9 vntol=1e-7 itl4=200\n");
+        yref = "m";
+    /* rshunt: 100 Mohm from every node to ground keeps blocked, floating nodes defined
+     * (3 uA at 300 V); without it the first steps stall at 1e-10 s */
+    fprintf(f, ".options method=gear reltol=1e-5 abstol=1e-9 vntol=1e-7 itl4=200 rshunt=1e8\n");
     fprintf(f, ".control\nset wr_singlescale\nset wr_vecnames\noption numdgt=12\n");
-    fprintf(f, "tran %.12g %.12g 0 %.12g uic\n", step, t_stop, maxstep);
+    /* no uic: the operating point with every device blocking, the capacitor held at
+     * its initial voltage by .ic, starts the transient (uic fails to converge with
+     * near-ideal diodes on floating bridge nodes) */
+    fprintf(f, "tran %.12g %.12g 0 %.12g\n", step, t_stop, maxstep);
     fprintf(f, "linearize\n");
-    if (d->topology == TF_TOPO_RING_DOWN)
-        fprintf(f, "wrdata %s i(L1) v(x) v(p) v(p,x)\n", data_path);
-    else
-        fprintf(f, "wrdata %s i(L1) v(x,%s) v(%s,%s) v(p,x)\n", data_path, yref, cap_hi, cap_lo);
+    fprintf(f, "wrdata %s i(L1) v(x,%s) v(%s,%s) v(p,x)\n", data_path, yref, cap_hi, cap_lo);
     fprintf(f, "quit\n.endc\n.end\n");
     return 0;
 }
@@ -187,7 +196,7 @@ int tf_spice_write_netlist(const tf_design *d, const tf_spice_options *o, const 
 int tf_spice_available(void) { return tf_test_have("ngspice"); }
 
 /* Read wrdata output: a header line, then rows "time v1 v2 v3 v4". */
-static int read_data(const char *path, const tf_design *d, double t_from, double step,
+static int read_data(const char *path, double t_from, double step,
                      tf_capture **out, char *msg, size_t msg_size)
 {
     FILE *f = fopen(path, "r");
@@ -232,15 +241,11 @@ static int read_data(const char *path, const tf_design *d, double t_from, double
         return spice_fail(msg, msg_size, "spice: out of memory");
     }
     static const char *const names[] = {"i_load", "v_out", "v_c", "v_ak1"};
-    int split = d->topology == TF_TOPO_HALF_BRIDGE && d->split_capacitor;
     for (size_t c = 0; c < 4; c++) {
         snprintf(cap->ch[c].name, sizeof cap->ch[c].name, "%s", names[c]);
         snprintf(cap->ch[c].unit, sizeof cap->ch[c].unit, "%s", c == 0 ? "A" : "V");
         for (size_t k = 0; k < rows; k++) {
-            double v = buf[k * 5 + 1 + c];
-            if (split && c == 2)
-                v -= or0(d->dc_link_v) / 2; /* split: capacitor node relative to mid-link */
-            cap->ch[c].samples[k] = (float)v;
+            cap->ch[c].samples[k] = (float)buf[k * 5 + 1 + c];
         }
     }
     cap->t0_s = buf[0];
@@ -266,6 +271,12 @@ int tf_spice_run(const tf_design *d, const tf_spice_options *opts, tf_capture **
         o.t_step_s = 1.0 / d->sample_rate_hz;
     if (!(o.max_step_s > 0))
         o.max_step_s = fmin(o.t_step_s / 2, 20e-9);
+    if (!(o.gate_width_s > 0)) {
+        o.gate_width_s = TF_SYNTH_GATE_WIDTH_S;
+        if (!d->n_firing_times && d->firing_frequency_hz > 0 &&
+            0.25 / d->firing_frequency_hz < o.gate_width_s)
+            o.gate_width_s = 0.25 / d->firing_frequency_hz;
+    }
     if (!(o.t_stop_s > 0) || !(o.t_step_s > 0) || o.t_stop_s / o.t_step_s > 5e6)
         return spice_fail(msg, msg_size, "spice: bad time grid (stop %g s, step %g s)", o.t_stop_s,
                     o.t_step_s);
@@ -289,7 +300,7 @@ int tf_spice_run(const tf_design *d, const tf_spice_options *opts, tf_capture **
     int st = tf_test_system("ngspice -b '%s' > '%s' 2>&1", cir, log);
     if (st != 0)
         return spice_fail(msg, msg_size, "spice: ngspice exited with %d (see %s)", st, log);
-    return read_data(data, d, start, o.t_step_s, out, msg, msg_size);
+    return read_data(data, start, o.t_step_s, out, msg, msg_size);
 }
 
 size_t tf_spice_crossings(const float *x, size_t n, double t0, double dt, double level,

@@ -18,11 +18,14 @@
  * high) in parallel with a latch (W element, closed while the thyristor's own current
  * exceeds 0.2 A, with 0.1 A hysteresis), in series with a blocking diode and a DC source
  * of the on-state drop; each anti-parallel diode is a diode in series with a DC source
- * of its forward drop. The diodes are near-ideal (N = 0.05: about 40 mV at 100 A), so
- * the drops match the design's to within that. The turn-off time t_q is NOT modelled
+ * of its forward drop. The diodes are near-ideal (IS 1e-12 A, N = 0.1, RS = 1 mohm:
+ * about 0.2 V at 100 A), so the drops match the design's to within that. Full-bridge:
+ * 100 kohm across each device keeps the floating legs defined. The turn-off time t_q is NOT modelled
  * (a thyristor blocks as soon as its current has stopped): compare only designs without
- * commutation failures. v_out = v(x) - v(y), v_c = v across C (split: v(y) relative to
- * the link midpoint is not what v_c means; use series for comparisons), v_ak1 = v(p, x).
+ * commutation failures. Channels as the simulator defines them: v_out = the level
+ * across the L-R-C chain (v(x) - v(y); split: v(x) minus the link midpoint; ring-down:
+ * v(x) - v(p)), v_c = the capacitor voltage along the loop (split: v(y) minus the
+ * midpoint; ring-down: -v(p)), v_ak1 = v(p, x).
  *
  * Initial state and firings follow the simulator's conventions (docs/simulator.md):
  * at rest before the first firing, with the capacitor voltage opts->vc0_v, gate pulses
@@ -41,16 +44,18 @@ typedef struct tf_spice_options {
     double t_stop_s;      /* end of the transient (default: design start + duration) */
     double t_step_s;      /* output grid step (default: 1 / design sample rate) */
     double max_step_s;    /* largest internal time step (default: min(t_step / 2, 20 ns)) */
-    double vc0_v;         /* capacitor voltage at t = 0 (default NAN: the simulator's
-                             convention for the topology, see tf_spice_default_vc0) */
-    double gate_width_s;  /* gate pulse width (default 10 us) */
+    double vc0_v;         /* the simulator's v_c at rest before the first firing (default
+                             NAN: its convention, see tf_spice_default_vc0) */
+    double gate_width_s;  /* gate pulse width (default 0: the simulator's, 10 us or a
+                             quarter firing period when that is shorter) */
     const char *workdir;  /* netlist, output and log go here (default: tf_test_tmpdir()) */
     const char *name;     /* base name of those files (default "spice") */
 } tf_spice_options;
 
 void tf_spice_options_init(tf_spice_options *o);
 
-/* Initial capacitor voltage the simulator starts a topology with (see docs/simulator.md). */
+/* The simulator's initial v_c: half the link for a series-capacitor half-bridge, 0 for
+ * split, full-bridge and single, -precharge for ring-down. */
 double tf_spice_default_vc0(const tf_design *d);
 
 /* Firing n (0-based) of design d: sets *t (s) and *pos (0: T1 or T1+T2, 1: T2 or T3+T4)
