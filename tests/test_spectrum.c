@@ -6,6 +6,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <sndfile.h>
 #include <tankfit/tankfit.h>
 
 #include "spectrum_internal.h"
@@ -415,6 +416,59 @@ static void test_spectrum_numpy_reference(void **state)
         }
     }
     fclose(in);
+    tf_spectrum_free(r);
+    tf_capture_destroy(cap);
+}
+
+/* ---- sox reference for DC, RMS and crest factor ------------------------------------ */
+
+static double sox_stat(const char *text, const char *key)
+{
+    const char *p = strstr(text, key);
+    assert_non_null(p);
+    return strtod(p + strlen(key), NULL);
+}
+
+static void test_spectrum_sox_stats(void **state)
+{
+    (void)state;
+    if (!tf_test_have("sox")) {
+        skip();
+        return;
+    }
+    /* 20 whole periods of 1 kHz at 48 kS/s, so sox's whole-file statistics
+     * cover exactly the analysed window */
+    const double fs = 48e3, f = 1e3;
+    tf_capture *cap = new_capture(1, 960, 1.0 / fs, 0.0);
+    harmonic_signal sg = {.f = f, .dc = 0.05, .H = 3};
+    sg.amp[1] = 0.3;
+    sg.ph[1] = 0.2;
+    sg.amp[3] = 0.1;
+    sg.ph[3] = -1.0;
+    fill_signal(cap, 0, &sg, 0.0, "v", "FS");
+    const char *wav = tf_test_tmpfile("spectrum_sox.wav");
+    SF_INFO info = {.samplerate = 48000, .channels = 1, .format = SF_FORMAT_WAV | SF_FORMAT_FLOAT};
+    SNDFILE *sf = sf_open(wav, SFM_WRITE, &info);
+    assert_non_null(sf);
+    assert_int_equal(sf_write_float(sf, cap->ch[0].samples, (sf_count_t)cap->n), (sf_count_t)cap->n);
+    assert_int_equal(sf_close(sf), 0);
+    const char *out = tf_test_tmpfile("spectrum_sox.txt");
+    assert_int_equal(tf_test_system("sox '%s' -n stats 2> '%s'", wav, out), 0);
+    char *text = tf_test_slurp(out, NULL);
+    assert_non_null(text);
+    tf_roles roles = roles_of(-1, 0, -1);
+    tf_spectrum_options o;
+    tf_spectrum_options_init(&o);
+    o.fundamental_hz = f;
+    tf_spectrum_result *r = run(cap, &roles, NULL, &o);
+    assert_int_equal(r->periods, 20);
+    /* reference: sox stats (Debian sox), printed to 6 decimals, 0.01 dB and
+     * 0.01 for the crest factor */
+    assert_true(fabs(r->ch[0].dc - sox_stat(text, "DC offset")) < 1e-6);
+    const double rms_db = 20.0 * log10(r->ch[0].rms);
+    assert_true(fabs(rms_db - sox_stat(text, "RMS lev dB")) <= 0.0051);
+    assert_true(fabs(r->ch[0].crest_factor - sox_stat(text, "Crest factor")) <= 0.0051);
+    free(text);
     tf_spectrum_free(r);
     tf_capture_destroy(cap);
 }
@@ -919,6 +973,7 @@ int main(void)
         cmocka_unit_test(test_spectrum_quasi_square),
         cmocka_unit_test(test_spectrum_fractional_period),
         cmocka_unit_test(test_spectrum_numpy_reference),
+        cmocka_unit_test(test_spectrum_sox_stats),
         cmocka_unit_test(test_spectrum_estimated_fundamental),
         cmocka_unit_test(test_spectrum_segmenter_fundamental),
         cmocka_unit_test(test_spectrum_hann_window),
