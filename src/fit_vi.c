@@ -9,7 +9,7 @@
 #include <gsl/gsl_linalg.h>
 
 #define NPAR 6          /* R, L, vc0, 1/C and two integration constants */
-#define SKEW_WINDOWS 128 /* windows used for the skew search */
+#define SKEW_WINDOWS 64  /* windows used for the skew search */
 #define SKEW_GROUPS 8    /* groups for the skew's uncertainty */
 
 double tf_fit_interp(const float *x, size_t n, double pos)
@@ -162,19 +162,20 @@ static int estimate_skew(const float *v, const float *i, size_t n, double dt,
         half = 2;
     if (half > 200)
         half = 200;
-    const size_t ng = (size_t)(2 * half + 1), nf = 21;
+    /* coarse grid of 2 samples over +-half, then 0.25 sample over +-2 samples */
+    const size_t ng = (size_t)half + 1, nf = 17;
     double *tot = malloc((ng + nf) * (ngrp + 1) * sizeof *tot);
     if (!tot)
         return -1;
     double *grp = tot + ng, *ftot = grp + ng * ngrp, *fgrp = ftot + nf;
-    if (rss_curves(v, i, n, dt, win, sub, nsub, -half * dt, dt, ng, tot, grp, ngrp) != 0) {
+    if (rss_curves(v, i, n, dt, win, sub, nsub, -(double)(half - half % 2) * dt, 2 * dt, ng, tot,
+                   grp, ngrp) != 0) {
         free(tot);
         return -1;
     }
     size_t im;
     parabolic_min(tot, ng, &im);
-    /* fine grid of 0.1 sample around the coarse minimum */
-    const double f0 = (double)((long)im - half) * dt - dt, fs = dt / 10.0;
+    const double f0 = (-(double)(half - half % 2) + 2.0 * (double)im) * dt - 2 * dt, fs = dt / 4.0;
     if (rss_curves(v, i, n, dt, win, sub, nsub, f0, fs, nf, ftot, fgrp, ngrp) != 0) {
         free(tot);
         return -1;

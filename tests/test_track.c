@@ -299,5 +299,7 @@ int main(void)
         cmocka_unit_test(test_track_needs_resistance),
         cmocka_unit_test(test_track_cli_files),
     };
+    if (getenv("TF_TEST_FILTER")) /* run one case by name, e.g. for timing */
+        cmocka_set_test_filter(getenv("TF_TEST_FILTER"));
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
