@@ -4,6 +4,7 @@
 #include <errno.h>
 #include <fcntl.h>
 #include <math.h>
+#include <pthread.h>
 #include <stdint.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -19,6 +20,8 @@
 /* Frames read per sf_readf_float call: a few hundred kB of interleaved
  * floats, reused for the whole file. */
 #define TF_WAV_BLOCK 16384
+/* Files of at least this many frames are read by two threads. */
+#define TF_WAV_PARALLEL_MIN (1u << 20)
 
 /* How each file channel is named, scaled and whether it is kept. */
 typedef struct {
@@ -361,6 +364,65 @@ static tf_status open_sound(const char *path, SNDFILE **sf, SF_INFO *info, tf_er
     return TF_OK;
 }
 
+/* Frames [from, to) of a file, read by one handle into the capture. */
+typedef struct {
+    const char *path;
+    const wav_chan *ch;
+    size_t nchan;
+    tf_capture *cap;
+    size_t from, to;
+    int check;                 /* float data: look for non-finite samples */
+    const tf_import_options *opt;
+    int report;                /* this part reports progress */
+    size_t bad;                /* first non-finite frame, SIZE_MAX when none */
+    size_t done;               /* frames read */
+    int nomem;
+    int opened;                /* the thread's own handle opened and seeked */
+} read_part;
+
+static void read_range(SNDFILE *sf, read_part *p)
+{
+    float *buf = malloc(TF_WAV_BLOCK * p->nchan * sizeof *buf);
+    if (!buf) {
+        p->nomem = 1;
+        return;
+    }
+    size_t pos = p->from, total = p->to - p->from;
+    while (pos < p->to) {
+        size_t want = p->to - pos < TF_WAV_BLOCK ? p->to - pos : TF_WAV_BLOCK;
+        sf_count_t got = sf_readf_float(sf, buf, (sf_count_t)want);
+        if (got <= 0)
+            break;
+        size_t bad = deinterleave(buf, (size_t)got, p->nchan, p->ch, p->cap, pos, p->check);
+        pos += (size_t)got;
+        if (bad != SIZE_MAX && p->bad == SIZE_MAX) {
+            p->bad = bad;
+            if (!p->opt->gaps_interpolate)
+                break;
+        }
+        if (p->report && p->opt->progress && !p->opt->quiet_progress)
+            p->opt->progress(p->opt->progress_ctx, (double)(pos - p->from) / (double)total);
+    }
+    p->done = pos - p->from;
+    free(buf);
+}
+
+static void *read_part_thread(void *arg)
+{
+    read_part *p = arg;
+    SF_INFO info;
+    memset(&info, 0, sizeof info);
+    SNDFILE *sf = sf_open(p->path, SFM_READ, &info);
+    if (!sf)
+        return NULL;
+    if (sf_seek(sf, (sf_count_t)p->from, SEEK_SET) == (sf_count_t)p->from) {
+        p->opened = 1;
+        read_range(sf, p);
+    }
+    sf_close(sf);
+    return NULL;
+}
+
 /* Read every frame into cap (allocated here for the kept channels). */
 static tf_status read_frames(const char *path, SNDFILE *sf, const SF_INFO *info, wav_chan *ch,
                              size_t kept, const tf_import_options *opt, tf_capture *cap,
@@ -390,31 +452,34 @@ static tf_status read_frames(const char *path, SNDFILE *sf, const SF_INFO *info,
         c->skew_s = ch[i].skew_s;
         c->skew_known = ch[i].skew_known;
     }
-    float *buf = malloc(TF_WAV_BLOCK * nchan * sizeof *buf);
-    if (!buf)
-        return tf_error_set(err, TF_ERR_NOMEM, "out of memory for a read buffer");
     int check = is_float_subformat(info->format);
-    size_t pos = 0, bad = SIZE_MAX;
-    while (pos < frames) {
-        size_t want = frames - pos < TF_WAV_BLOCK ? frames - pos : TF_WAV_BLOCK;
-        sf_count_t got = sf_readf_float(sf, buf, (sf_count_t)want);
-        if (got <= 0)
-            break;
-        bad = deinterleave(buf, (size_t)got, nchan, ch, cap, pos, check);
-        pos += (size_t)got;
-        if (bad != SIZE_MAX && !opt->gaps_interpolate)
-            break;
-        if (opt->progress && !opt->quiet_progress)
-            opt->progress(opt->progress_ctx, (double)pos / (double)frames);
+    /* uncompressed data seeks exactly: the second half goes to a second
+     * thread with its own handle (opt->threads == 1 keeps one) */
+    size_t half = frames;
+    if (frames >= TF_WAV_PARALLEL_MIN && sample_bytes(info->format) > 0 && info->seekable &&
+        opt->threads != 1)
+        half = frames / 2;
+    read_part a = {path, ch, nchan, cap, 0, half, check, opt, 1, SIZE_MAX, 0, 0, 0};
+    read_part b = {path, ch, nchan, cap, half, frames, check, opt, 0, SIZE_MAX, 0, 0, 0};
+    pthread_t t;
+    int threaded = half < frames && pthread_create(&t, NULL, read_part_thread, &b) == 0;
+    read_range(sf, &a);
+    if (threaded)
+        pthread_join(t, NULL);
+    if (half < frames && !b.opened && a.done == half) { /* no thread, or it could not open */
+        if (sf_seek(sf, (sf_count_t)half, SEEK_SET) == (sf_count_t)half)
+            read_range(sf, &b);
     }
-    free(buf);
+    if (a.nomem || b.nomem)
+        return tf_error_set(err, TF_ERR_NOMEM, "out of memory for a read buffer");
+    size_t bad = a.bad < b.bad ? a.bad : b.bad;
     if (bad != SIZE_MAX && !opt->gaps_interpolate)
         return tf_error_set(err, TF_ERR_DATA, "%s: frame %zu: expected finite samples, found "
                             "NaN or infinity (--gaps interpolate fills them)", path, bad + 1);
-    if (pos < frames)
+    if (a.done < half || b.done < frames - half)
         return tf_error_set(err, TF_ERR_DATA, "%s: truncated: the header declares %zu frames, "
-                            "only %zu could be read (libsndfile: %s)", path, frames, pos,
-                            sf_strerror(sf));
+                            "only %zu could be read (libsndfile: %s)", path, frames,
+                            a.done < half ? a.done : half + b.done, sf_strerror(sf));
     if (check && opt->gaps_interpolate) {
         size_t filled = 0;
         for (size_t c = 0; c < cap->nchan; c++) {

@@ -476,6 +476,42 @@ static void test_import_wav_dispatch_and_rate(void **state)
     tf_capture_destroy(cap);
 }
 
+static void test_import_wav_two_threads(void **state)
+{
+    (void)state;
+    /* 1.2 million frames are read in two halves by two handles: the result
+     * must equal the one-thread read and SoX's rate and count */
+    const char *p = sox("long.wav", "-r 1000000 -c 2 -b 16 synth 1.2 sine 5000 "
+                        "sine 7000 vol 0.6");
+    tf_import_options one;
+    tf_import_options_init(&one);
+    one.threads = 1;
+    tf_capture *a = load(p, NULL), *b = load(p, &one);
+    assert_int_equal(a->n, 1200000);
+    assert_int_equal(b->n, 1200000);
+    for (int c = 0; c < 2; c++)
+        assert_memory_equal(a->ch[c].samples, b->ch[c].samples, a->n * sizeof(float));
+    /* 5 kHz at 1 MHz: 6000 whole periods, RMS 0.6 / sqrt(2) (textbook) */
+    assert_true(fabs(rms_of(a->ch[0].samples, a->n) - 0.6 / sqrt(2.0)) < 1e-3);
+    tf_capture_destroy(a);
+    tf_capture_destroy(b);
+    /* a NaN in the second half is reported at its frame */
+    const char *f = tf_test_tmpfile("long_nan.wav");
+    SF_INFO info = {0};
+    info.samplerate = 1000000;
+    info.channels = 1;
+    info.format = SF_FORMAT_WAV | SF_FORMAT_FLOAT;
+    SNDFILE *sf = sf_open(f, SFM_WRITE, &info);
+    assert_non_null(sf);
+    float *v = calloc(1100000, sizeof *v);
+    assert_non_null(v);
+    v[1000000] = NAN;
+    assert_int_equal(sf_writef_float(sf, v, 1100000), 1100000);
+    sf_close(sf);
+    free(v);
+    assert_non_null(strstr(load_fail(f, NULL, TF_ERR_DATA), "frame 1000001: expected finite"));
+}
+
 static void progress_cb(void *ctx, double fraction)
 {
     double *last = ctx;
@@ -537,6 +573,7 @@ int main(void)
         cmocka_unit_test(test_import_wav_non_finite),
         cmocka_unit_test(test_import_wav_dispatch_and_rate),
         cmocka_unit_test(test_import_wav_more_formats),
+        cmocka_unit_test(test_import_wav_two_threads),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

@@ -17,7 +17,7 @@ if [ ! -f "$wav" ]; then
   if [ -f "$gen" ]; then
     /usr/bin/python3 "$gen" "$frames" "$wav" --wav >/dev/null
   else
-    sox -D -n -r 10000000 -c 3 -b 16 "$wav" synth "$frames"s sine 8000 sine 19000 sine 3000 \
+    sox -D -n -r 10000000 -c 3 -b 16 "$wav" synth 1 sine 8000 sine 19000 sine 3000 \
         remix 1v0.4 2v0.5 3v0.8
   fi
 fi
