@@ -111,7 +111,7 @@ int tf_csv_time_value(const char *s, size_t len, char decimal, int sig_digits, d
     *value = neg ? -v : v;
     /* m != 0 has nd10 = number of digits of m; its lead digit sits at e + nd10 - 1 */
     long nd10 = 1;
-    for (uint64_t t = m; t >= 10; t /= 10)
+    for (uint64_t p10 = 10; nd10 < 16 && m >= p10; p10 *= 10)
         nd10++;
     long last = e, lead = e + nd10 - 1;
     if (sig_digits > 0 && lead - sig_digits + 1 < last)

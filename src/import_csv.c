@@ -523,8 +523,11 @@ static tf_status run_parse(const tf_csv_source *src, const tf_csv_layout *lay, c
     }
     size_t total = 0;
     for (size_t i = 0; i < *nw; i++) {
+        /* rows <= line ends + 1, and a row takes at least ncols bytes (its
+         * delimiters and line end), which bounds memory for a file of blank lines */
+        size_t by_bytes = (w[i].end - w[i].begin) / lay->ncols + 1;
         w[i].base = total;
-        w[i].cap = w[i].terms + 1;
+        w[i].cap = w[i].terms + 1 < by_bytes ? w[i].terms + 1 : by_bytes;
         total += w[i].cap;
     }
     w[0].line = lay->data_line;
