@@ -103,29 +103,26 @@ static void fit_one_burst(const job_ctx *c, tf_dsfit_workspace *ws, size_t k)
         b->status = TF_FITB_SHORT;
         return;
     }
-    tf_dsfit_options o = {c->opt->offset_term, 0.0, 0};
-    tf_dsfit raw, fit;
+    tf_dsfit_options o = {c->opt->offset_term, 0.0, 0, 0.0, 0.0, 0.0};
+    if (isfinite(c->drop_v) && (isfinite(c->c_f) || isfinite(c->l_h))) {
+        o.drop_step_v = c->drop_v;
+        o.drop_c_f = isfinite(c->c_f) ? c->c_f : 0.0;
+        o.drop_l_h = isfinite(c->l_h) ? c->l_h : 0.0;
+    }
+    tf_dsfit fit;
     tf_error e;
-    if (tf_dsfit_run(ws, c->x + i0, i1 - i0, c->dt, &o, &raw, &e) != TF_OK) {
+    if (tf_dsfit_run(ws, c->x + i0, i1 - i0, c->dt, &o, &fit, &e) != TF_OK) {
         b->status = TF_FITB_FAILED;
         return;
     }
-    fit = raw;
-    const double w0raw = hypot(raw.wd_rad_s, raw.alpha_per_s);
+    const double w0raw = hypot(fit.raw_wd_rad_s, fit.raw_alpha_per_s);
     const double lraw = tank_l(c, w0raw);
-    if (isfinite(c->drop_v) && isfinite(lraw)) {
-        o.drop_step_a = c->drop_v / (raw.wd_rad_s * lraw);
-        if (tf_dsfit_run(ws, c->x + i0, i1 - i0, c->dt, &o, &fit, &e) != TF_OK) {
-            b->status = TF_FITB_FAILED;
-            return;
-        }
-    }
     const double a = fit.alpha_per_s, wd = fit.wd_rad_s, w0 = hypot(wd, a);
     b->fd_hz = wd / (2 * M_PI);
     b->u_fd_hz = fit.u_wd_rad_s / (2 * M_PI);
     b->alpha_per_s = a;
     b->u_alpha_per_s = fit.u_alpha_per_s;
-    b->alpha_raw_per_s = raw.alpha_per_s;
+    b->alpha_raw_per_s = fit.raw_alpha_per_s;
     b->w0_rad_s = w0;
     b->q = w0 / (2 * a);
     /* dQ/dalpha and dQ/dwd of Q = sqrt(wd^2 + alpha^2) / (2 alpha) */
@@ -149,7 +146,7 @@ static void fit_one_burst(const job_ctx *c, tf_dsfit_workspace *ws, size_t k)
                                        2 * dra * drw * fit.cov_alpha_wd);
             b->inductance_h = L;
         }
-        b->resistance_raw_ohm = 2 * raw.alpha_per_s * lraw;
+        b->resistance_raw_ohm = 2 * fit.raw_alpha_per_s * lraw;
     }
     b->status = TF_FITB_OK;
 }

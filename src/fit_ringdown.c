@@ -577,7 +577,9 @@ static tf_status fit_core(int use_gsl, tf_dsfit_workspace *w, const float *x, si
         return tf_error_set(err, TF_ERR_USAGE,
                             "damped-sine fit: expected >= 8 samples and dt > 0, found %zu", n);
     const int offset = o && o->offset_term;
-    const double drop = o && o->drop_step_a > 0 ? o->drop_step_a : 0.0;
+    double drop = o && o->drop_step_a > 0 ? o->drop_step_a : 0.0;
+    const int drop_from_tank = !(drop > 0) && o && o->drop_step_v > 0 &&
+                               (o->drop_c_f > 0 || o->drop_l_h > 0);
     const int maxit = o && o->max_iter > 0 ? o->max_iter : 50;
     const size_t p = offset ? 5 : 4;
     double par[5] = {0}, H[25], rss = NAN;
@@ -597,6 +599,24 @@ static tf_status fit_core(int use_gsl, tf_dsfit_workspace *w, const float *x, si
     int iters = 0;
     if ((use_gsl ? run_lm(ws, &m, par, maxit, &iters) : run_fast(&m, par, maxit, &iters, H, &rss)) != 0)
         return tf_error_set(err, TF_ERR_NUMERIC, "damped-sine fit did not converge");
+    {
+        /* the plain fit, kept whatever follows */
+        double g[5], Hc[25];
+        memcpy(Hc, H, sizeof Hc);
+        if (use_gsl || !isfinite(rss))
+            rss = accumulate(par, &m, Hc, g);
+        double u[2];
+        step_scale(Hc, p, rss, n, u);
+        out->raw_alpha_per_s = par[0] / dt_s;
+        out->raw_wd_rad_s = par[1] / dt_s;
+        out->raw_u_alpha_per_s = u[0] / dt_s;
+        if (drop_from_tank && par[1] > 0) {
+            const double wd = par[1] / dt_s, a = par[0] / dt_s;
+            const double L = o->drop_l_h > 0 ? o->drop_l_h : 1.0 / ((wd * wd + a * a) * o->drop_c_f);
+            drop = o->drop_step_v / (wd * L);
+        }
+    }
+    out->drop_step_a = drop;
     if (drop > 0) {
         /* drop steps at the model's own crossings; crossings move slightly when the
          * steps are added, so repeat until they settle */
@@ -617,7 +637,7 @@ static tf_status fit_core(int use_gsl, tf_dsfit_workspace *w, const float *x, si
             m.cross = w->cross[cur];
             m.dsign = w->csign[cur];
             m.ncross = nc;
-            if (shift < 1e-3)
+            if (shift < 1e-2) /* a hundredth of a sample: far below the noise */
                 break;
             if ((use_gsl ? run_lm(ws, &m, par, maxit, &iters)
                          : run_fast(&m, par, maxit, &iters, H, &rss)) != 0)

@@ -38,7 +38,7 @@ static void test_fit_dsfit_exact(void **state)
     /* with an offset term: a constant added to the samples comes back */
     for (size_t k = 0; k < n; k++)
         x[k] += 2.5f;
-    tf_dsfit_options o = {1, 0, 0};
+    tf_dsfit_options o = {.offset_term = 1};
     assert_int_equal(tf_dsfit_run(w, x, n, dt, &o, &f, &e), TF_OK);
     assert_true(fabs(f.offset_a - 2.5) < 1e-4);
     assert_true(tf_test_reldiff(f.wd_rad_s, wd) < 1e-6);
@@ -187,7 +187,7 @@ static void test_fit_gsl_nlinear_agrees(void **state)
     tf_dsfit_workspace *w = tf_dsfit_workspace_create();
     tf_dsfit a, b;
     tf_error e;
-    tf_dsfit_options o = {0, 0.8, 0};
+    tf_dsfit_options o = {.drop_step_a = 0.8};
     assert_int_equal(tf_dsfit_run(w, x, n, dt, &o, &a, &e), TF_OK);
     assert_int_equal(tf_dsfit_run_gsl(w, x, n, dt, &o, &b, &e), TF_OK);
     /* reference: GSL gsl_multifit_nlinear (trust-region Levenberg-Marquardt) */

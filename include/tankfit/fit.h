@@ -49,6 +49,10 @@ typedef struct tf_dsfit_options {
     int offset_term;           /* fit a constant offset current */
     double drop_step_a;        /* (V_T + V_D) / (wd L) in amperes, >= 0; 0: plain model */
     int max_iter;              /* Levenberg-Marquardt iterations (0: default 50) */
+    /* Alternatively (when drop_step_a is 0): the drop step in volts and the known C
+     * or L (farads / henries, 0 or NAN when unknown); the step in amperes is then
+     * taken from the plain fit's w0: L = 1 / (w0^2 C) or the given L. */
+    double drop_step_v, drop_c_f, drop_l_h;
 } tf_dsfit_options;
 
 typedef struct tf_dsfit {
@@ -61,6 +65,9 @@ typedef struct tf_dsfit {
     double init_alpha_per_s, init_wd_rad_s; /* matrix pencil start values */
     size_t ncross;                       /* zero crossings with a drop term */
     int iterations;                      /* Levenberg-Marquardt iterations used */
+    double raw_alpha_per_s, raw_u_alpha_per_s, raw_wd_rad_s; /* the plain fit (= above
+                                            when no drop model was used) */
+    double drop_step_a;                  /* step used (0: plain model) */
 } tf_dsfit;
 
 /* Per-thread scratch space of the damped-sine fit (GSL workspaces kept between
