@@ -159,6 +159,38 @@ static void test_capture_json_python(void **state)
     tf_capture_destroy(cap);
 }
 
+/* Every key of obj must be named as `key` in the documentation text. */
+static void keys_documented(json_t *obj, const char *doc)
+{
+    const char *key;
+    json_t *v;
+    json_object_foreach(obj, key, v) {
+        char quoted[80];
+        snprintf(quoted, sizeof quoted, "`%s`", key);
+        if (!strstr(doc, quoted))
+            fprintf(stderr, "docs/inspect.md does not document key %s\n", key);
+        assert_non_null(strstr(doc, quoted));
+    }
+}
+
+static void test_capture_json_documented(void **state)
+{
+    (void)state;
+    /* docs/inspect.md lists every JSON key (the document is the interface) */
+    size_t len;
+    char *doc = tf_test_slurp(tf_test_src("docs/inspect.md"), &len);
+    assert_non_null(doc);
+    tf_capture *cap = two_channels(50);
+    tf_capture_compute_stats(cap);
+    json_t *j = tf_capture_to_json(cap);
+    keys_documented(j, doc);
+    keys_documented(json_object_get(j, "dialect"), doc);
+    keys_documented(json_array_get(json_object_get(j, "channels"), 0), doc);
+    json_decref(j);
+    tf_capture_destroy(cap);
+    free(doc);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -166,6 +198,7 @@ int main(void)
         cmocka_unit_test(test_capture_json_keys),
         cmocka_unit_test(test_capture_json_unknowns),
         cmocka_unit_test(test_capture_json_python),
+        cmocka_unit_test(test_capture_json_documented),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
