@@ -111,7 +111,7 @@ static tf_status split_runs(const seg_input *in, const seg_run *r, size_t nr, tf
 {
     int bridge = topo == TF_TOPO_HALF_BRIDGE || topo == TF_TOPO_FULL_BRIDGE;
     /* w from lobes that are whole pieces (start and end at a zero of their own piece) */
-    double *tmp = malloc((nr + 1) * sizeof *tmp);
+    double *tmp = malloc(2 * (nr + 1) * sizeof *tmp);
     if (!tmp)
         return TF_ERR_NOMEM;
     size_t nw = 0;
@@ -136,21 +136,30 @@ static tf_status split_runs(const seg_input *in, const seg_run *r, size_t nr, tf
                 len > 1.15 * M_PI / wpiece)
                 cand[j] = 1;
         }
-    /* the tank's w for stretches without a whole piece: searched on a few stretches */
-    double wsplit = wpiece;
-    if (!(wsplit > 0)) {
+    /* the tank's w and decay from a few stretches (searched), then every split with
+     * them fixed: the shared values steady the split (w alone is known from whole pieces
+     * in mixed operation) */
+    double wsplit = wpiece, asplit = 0;
+    {
         size_t m = 0;
+        double *av = tmp + nr + 1;
         for (size_t j = 0; j < nr && m < 9; j++) {
-            if (!cand[j])
+            if (!cand[j] || firing_inside(in, r[j].t_start, r[j].t_end) >= 0)
                 continue;
-            double w = 0, s;
+            double w = wpiece, a = 0, s;
             if (seg_split_pieces(in->x, (size_t)ceil(r[j].t_start) + 1,
                                  (size_t)floor(r[j].t_end) - 1, r[j].t_start, r[j].t_end, &w,
-                                 0.0, &s) == 0)
-                tmp[m++] = w;
+                                 &a, 0, &s) == 0) {
+                tmp[m] = w;
+                av[m++] = a;
+            }
         }
-        wsplit = m ? median_of(tmp, m) : 0;
-        *w_out = wsplit;
+        if (m) {
+            wsplit = median_of(tmp, m);
+            asplit = median_of(av, m);
+        }
+        if (!(wpiece > 0))
+            *w_out = wsplit;
     }
     free(tmp);
     for (size_t j = 0; j < nr; j++) {
@@ -159,10 +168,11 @@ static tf_status split_runs(const seg_input *in, const seg_run *r, size_t nr, tf
         double s = -1, w = wsplit;
         if (cand[j]) {
             s = firing_inside(in, r[j].t_start, r[j].t_end);
+            double a = asplit;
             if (s < 0 && w > 0 &&
                 seg_split_pieces(in->x, (size_t)ceil(r[j].t_start) + 1,
                                  (size_t)floor(r[j].t_end) - 1, r[j].t_start, r[j].t_end, &w,
-                                 0.0, &s) != 0)
+                                 &a, 1, &s) != 0)
                 s = -1;
         }
         if (s < 0) {

@@ -125,9 +125,10 @@ int seg_chain_fit(const float *x, size_t k0, size_t k1, const seg_clip *clips, s
 
 /* Split a same-sign stretch [k0, k1] holding the end of a diode piece (which started
  * at zero at z0) and the start of the next thyristor piece (which ends at zero at
- * z1): the split that minimises the residual of the two damped-sine pieces, with
- * w and a refined around the priors. Returns 0 and *split (index units). */
+ * z1): the split that minimises the residual of the two damped-sine pieces. Unless
+ * fixed, w and a (in/out; w <= 0: searched from scratch) are fitted with it (GSL
+ * Nelder-Mead). Returns 0 and *split (index units). */
 int seg_split_pieces(const float *x, size_t k0, size_t k1, double z0, double z1, double *w,
-                     double a, double *split);
+                     double *a, int fixed, double *split);
 
 #endif

@@ -5,6 +5,7 @@
 #include <string.h>
 
 #include <gsl/gsl_linalg.h>
+#include <gsl/gsl_multimin.h>
 
 /* Solve the symmetric positive definite system A y = r (n <= 4) with GSL's Cholesky. */
 static int spd_solve(double *a, double *r, double *y, size_t n)
@@ -110,7 +111,7 @@ int seg_model_zero(const float *x, size_t k0, size_t k1, const seg_clip *clips, 
  * for fixed w, a: returns the residual; *s is the first sample of the second piece and
  * amp[0..1] the pieces' amplitudes. */
 static double split_residual(const float *x, size_t k0, size_t k1, double z0, double z1,
-                             double w, double a, size_t *s, double amp[2])
+                             double w, double a, size_t *s, double amp[2], double *nb)
 {
     const double de = exp(-a), dc = cos(w), ds = sin(w);
     double e2 = exp(-a * ((double)k0 - z1)), c2 = cos(w * ((double)k0 - z1)),
@@ -131,18 +132,29 @@ static double split_residual(const float *x, size_t k0, size_t k1, double z0, do
     e2 = exp(-a * ((double)k0 - z1));
     c2 = cos(w * ((double)k0 - z1));
     s2 = sin(w * ((double)k0 - z1));
-    double axg = 0, agg = 0, bxg = 0, bgg = 0, best = INFINITY;
+    double axg = 0, agg = 0, bxg = 0, bgg = 0, best = INFINITY, last = NAN;
+    int after = 0;
     for (size_t k = k0; k <= k1; k++) {
         /* split before k: piece 1 holds [k0, k-1] */
         if (k >= k0 + 3 && k + 3 <= k1 && agg > 0 && tgg - bgg > 0) {
             double r2 = txg - bxg, q2 = tgg - bgg;
             double res = sxx - axg * axg / agg - r2 * r2 / q2;
+            if (after && nb)
+                nb[2] = res;
+            after = 0;
             if (res < best) {
                 best = res;
                 *s = k;
                 amp[0] = axg / agg;
                 amp[1] = r2 / q2;
+                if (nb) {
+                    nb[0] = last;
+                    nb[1] = res;
+                    nb[2] = NAN;
+                }
+                after = 1;
             }
+            last = res;
         }
         double v = x[k], g1 = e1 * s1, g2 = e2 * s2;
         axg += v * g1;
@@ -168,88 +180,140 @@ static double piece_diff(double t, double z0, double z1, double w, double a,
            amp[1] * exp(-a * (t - z1)) * sin(w * (t - z1));
 }
 
-/* Golden-section minimum of the split residual over w in [lo, hi] (fixed a = other),
- * or over a in [lo, hi] (fixed w = other) when over_a. */
-static double golden_w(const float *x, size_t k0, size_t k1, double z0, double z1, double lo,
-                       double hi, double other, int over_a)
+typedef struct split_ctx {
+    const float *x;
+    size_t k0, k1;
+    double z0, z1, scale_a;
+} split_ctx;
+
+/* Nelder-Mead objective: v = (w, a / scale_a); the best split for each trial by the sweep. */
+static double split_objective(const gsl_vector *v, void *p)
 {
-    const double gr = 0.6180339887498949;
-    double amp[2];
+    const split_ctx *c = p;
+    double w = gsl_vector_get(v, 0), a = gsl_vector_get(v, 1) * c->scale_a, amp[2];
     size_t s;
-#define RES(v) (over_a ? split_residual(x, k0, k1, z0, z1, other, (v), &s, amp) \
-                       : split_residual(x, k0, k1, z0, z1, (v), other, &s, amp))
-    double c = hi - gr * (hi - lo), d = lo + gr * (hi - lo), fc = RES(c), fd = RES(d);
-    for (int it = 0; it < 40 && hi - lo > 1e-9 * (fabs(hi) + fabs(lo) + 1e-12); it++) {
-        if (fc < fd) {
-            hi = d;
-            d = c;
-            fd = fc;
-            c = hi - gr * (hi - lo);
-            fc = RES(c);
-        } else {
-            lo = c;
-            c = d;
-            fc = fd;
-            d = lo + gr * (hi - lo);
-            fd = RES(d);
-        }
-    }
-#undef RES
-    return 0.5 * (lo + hi);
+    if (!(w > 0) || a < -0.5 * w || a > 0.5 * w)
+        return INFINITY;
+    return split_residual(c->x, c->k0, c->k1, c->z0, c->z1, w, a, &s, amp, NULL);
 }
 
+static int split_at(const float *x, size_t k0, size_t k1, size_t s, double z0, double z1,
+                    double wf, double a, double amp[2], const double nb[3], double *split);
+
 int seg_split_pieces(const float *x, size_t k0, size_t k1, double z0, double z1, double *w,
-                     double a, double *split)
+                     double *ap, int fixed, double *split)
 {
     if (k1 < k0 + 12 || !(z1 > z0))
         return -1;
-    double len = z1 - z0, lo, hi, amp[2];
+    double len = z1 - z0, amp[2], nb[3], a = *ap;
     size_t s = 0;
-    if (*w > 0) {
-        lo = 0.97 * *w;
-        hi = 1.03 * *w;
-    } else {
+    double w0 = *w;
+    if (fixed && w0 > 0) {
+        if (!isfinite(split_residual(x, k0, k1, z0, z1, w0, a, &s, amp, nb)))
+            return -1;
+        return split_at(x, k0, k1, s, z0, z1, w0, a, amp, nb, split);
+    }
+    if (!(w0 > 0)) {
         /* each piece lasts less than half a damped period: w < 2 pi / len */
-        double best = INFINITY, wb = 0, g0 = 0.4 * M_PI / len, g1 = 2.0 * M_PI / len;
-        const int ng = 24;
+        double best = INFINITY, g0 = 0.4 * M_PI / len, g1 = 2.0 * M_PI / len;
+        const int ng = 32;
         for (int i = 0; i <= ng; i++) {
             double wi = g0 + (g1 - g0) * i / ng;
-            double res = split_residual(x, k0, k1, z0, z1, wi, a, &s, amp);
+            double res = split_residual(x, k0, k1, z0, z1, wi, a, &s, amp, NULL);
             if (res < best) {
                 best = res;
-                wb = wi;
+                w0 = wi;
             }
         }
-        if (!(wb > 0))
+        if (!(w0 > 0))
             return -1;
-        lo = wb - (g1 - g0) / ng;
-        hi = wb + (g1 - g0) / ng;
     }
-    /* golden-section searches: w, then the decay a, then w again (the split for each
-     * trial found by the sweep) */
-    double wf = golden_w(x, k0, k1, z0, z1, lo, hi, a, 0);
-    double af = golden_w(x, k0, k1, z0, z1, 0, 0.5 * wf, wf, 1);
-    wf = golden_w(x, k0, k1, z0, z1, 0.98 * wf, 1.02 * wf, af, 0);
-    a = af;
-    if (!isfinite(split_residual(x, k0, k1, z0, z1, wf, a, &s, amp)))
+    /* w and the decay together (GSL's Nelder-Mead simplex): the pieces' residual is a
+     * smooth function of both once the split is swept for each */
+    split_ctx ctx = {x, k0, k1, z0, z1, w0};
+    gsl_multimin_function f = {split_objective, 2, &ctx};
+    gsl_vector *v = gsl_vector_alloc(2), *step = gsl_vector_alloc(2);
+    gsl_multimin_fminimizer *m = gsl_multimin_fminimizer_alloc(gsl_multimin_fminimizer_nmsimplex2, 2);
+    if (!v || !step || !m) {
+        gsl_vector_free(v);
+        gsl_vector_free(step);
+        gsl_multimin_fminimizer_free(m);
         return -1;
-    /* sub-sample: where the two fitted pieces meet, near the best sample split */
-    double ta = (double)s - 2, tb = (double)s + 1;
-    double fa = piece_diff(ta, z0, z1, wf, a, amp), fb = piece_diff(tb, z0, z1, wf, a, amp);
-    double t = (double)s - 0.5;
-    if (fa * fb < 0) {
-        for (int it = 0; it < 50; it++) {
-            double m = 0.5 * (ta + tb), fm = piece_diff(m, z0, z1, wf, a, amp);
-            if (fa * fm <= 0) {
-                tb = m;
-            } else {
-                ta = m;
-                fa = fm;
-            }
-        }
-        t = 0.5 * (ta + tb);
     }
+    gsl_vector_set(v, 0, w0);
+    gsl_vector_set(v, 1, a / w0);
+    gsl_vector_set(step, 0, 0.02 * w0);
+    gsl_vector_set(step, 1, 0.02);
+    gsl_multimin_fminimizer_set(m, &f, v, step);
+    for (int it = 0; it < 200; it++) {
+        if (gsl_multimin_fminimizer_iterate(m) != 0)
+            break;
+        if (gsl_multimin_test_size(gsl_multimin_fminimizer_size(m), 1e-9 * w0) == 0)
+            break;
+    }
+    double wf = gsl_vector_get(m->x, 0), af = gsl_vector_get(m->x, 1) * w0;
+    gsl_vector_free(v);
+    gsl_vector_free(step);
+    gsl_multimin_fminimizer_free(m);
+    if (!isfinite(split_residual(x, k0, k1, z0, z1, wf, af, &s, amp, nb)))
+        return -1;
     *w = wf;
+    *ap = af;
+    return split_at(x, k0, k1, s, z0, z1, wf, af, amp, nb, split);
+}
+
+/* Sub-sample split near the best sample split s of the fitted pieces. */
+/* Amplitudes of the two pieces for the split before sample ks. */
+static void split_amps(const float *x, size_t k0, size_t k1, size_t ks, double z0, double z1,
+                       double w, double a, double amp[2])
+{
+    double n[2] = {0, 0}, d[2] = {0, 0};
+    for (size_t k = k0; k <= k1; k++) {
+        int p = k >= ks;
+        double u = (double)k - (p ? z1 : z0), g = exp(-a * u) * sin(w * u);
+        n[p] += x[k] * g;
+        d[p] += g * g;
+    }
+    for (int p = 0; p < 2; p++)
+        if (d[p] > 0)
+            amp[p] = n[p] / d[p];
+}
+
+/* Sub-sample split: where the two fitted pieces meet (the current is continuous at a
+ * firing). The pieces' amplitudes come from hundreds of samples each, so their meeting
+ * point is far steadier than the best sample split; refitted twice around it. */
+static int split_at(const float *x, size_t k0, size_t k1, size_t s, double z0, double z1,
+                    double wf, double a, double amp[2], const double nb[3], double *split)
+{
+    double t = (double)s - 0.5;
+    double den = nb[0] - 2 * nb[1] + nb[2];
+    if (isfinite(den) && den > 0)
+        t = (double)s - 0.5 + 0.5 * (nb[0] - nb[2]) / den; /* the residual's parabola */
+    for (int pass = 0; pass < 3; pass++) {
+        double root = NAN;
+        for (double r = 0.5; r <= 12 && !isfinite(root); r += 0.5)
+            for (int sgn = -1; sgn <= 1 && !isfinite(root); sgn += 2) {
+                double ta = t + sgn * (r - 0.5), tb = t + sgn * r;
+                double fa = piece_diff(ta, z0, z1, wf, a, amp), fb = piece_diff(tb, z0, z1, wf, a, amp);
+                if (fa * fb > 0)
+                    continue;
+                for (int it = 0; it < 50; it++) {
+                    double m = 0.5 * (ta + tb), fm = piece_diff(m, z0, z1, wf, a, amp);
+                    if (fa * fm <= 0) {
+                        tb = m;
+                    } else {
+                        ta = m;
+                        fa = fm;
+                    }
+                }
+                root = 0.5 * (ta + tb);
+            }
+        if (!isfinite(root) || root <= (double)k0 + 2 || root >= (double)k1 - 2)
+            break;
+        t = root;
+        if (pass < 2)
+            split_amps(x, k0, k1, (size_t)ceil(t), z0, z1, wf, a, amp);
+    }
     *split = t;
     return 0;
 }

@@ -325,14 +325,10 @@ static void overlapping(int gates)
     assert_int_equal(m.found, m.truth);
     assert_int_equal(m.attributed, m.truth);
     assert_true(m.max_err_s <= 0.5 * w.cap->dt_s);
-    if (gates) {
-        check_turnoff(&w, r, 2e-6);
-    } else {
-        /* KNOWN GAP: from the current alone the slope-break split is found only to
-         * within about ten samples so far (the issue asks 1 sample + 0.5 %); this checks
-         * what is reached, so that a regression still fails */
-        assert_true(m.max_fire_err_s <= 12 * w.cap->dt_s);
-    }
+    /* the split at the next firing: from the gate edge, or from the current alone by the
+     * two-piece residual (issue 4: turn-off time within 1 sample + 0.5 %) */
+    assert_true(m.max_fire_err_s <= 1.0 * w.cap->dt_s);
+    check_turnoff(&w, r, 2e-6);
     for (size_t k = 0; k < r->ncycles; k++)
         if (isfinite(r->cycles[k].overlap_s))
             assert_true(r->cycles[k].overlap_s > 0);
