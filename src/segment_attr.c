@@ -86,7 +86,38 @@ typedef struct lobe_rec {
     seg_bkind k0, k1;
     int sign, m0, m1;
     double w;          /* model w of a split stretch (rad/sample), 0 when none */
+    double vstep;      /* output-voltage step near a split (index units), NAN if none */
 } lobe_rec;
+
+/* The output voltage's step nearest a firing at s (index units): where it crosses half
+ * way between its levels before and after; NAN when there is no voltage channel or no
+ * clear step within 20 samples. */
+static double voltage_step(const seg_input *in, double s)
+{
+    if (in->roles->voltage < 0)
+        return NAN;
+    const float *v = in->cap->ch[in->roles->voltage].samples;
+    long k = (long)floor(s), n = (long)in->n;
+    if (k < 40 || k + 40 >= n)
+        return NAN;
+    double before = 0, after = 0;
+    for (long i = 25; i < 40; i++) {
+        before += v[k - i];
+        after += v[k + i];
+    }
+    before /= 15;
+    after /= 15;
+    double mid = 0.5 * (before + after), best = NAN;
+    if (fabs(after - before) < 1e-9)
+        return NAN;
+    for (long i = k - 20; i < k + 20; i++)
+        if ((v[i] - mid) * (v[i + 1] - mid) <= 0 && v[i] != v[i + 1]) {
+            double t = (double)i + (mid - v[i]) / ((double)v[i + 1] - v[i]);
+            if (!isfinite(best) || fabs(t - s) < fabs(best - s))
+                best = t;
+        }
+    return best;
+}
 
 static int push_rec(seg_vec *v, const lobe_rec *l)
 {
@@ -144,7 +175,7 @@ static tf_status split_runs(const seg_input *in, const seg_run *r, size_t nr, tf
         size_t m = 0;
         double *av = tmp + nr + 1;
         for (size_t j = 0; j < nr && m < 9; j++) {
-            if (!cand[j] || firing_inside(in, r[j].t_start, r[j].t_end) >= 0)
+            if (!cand[j])
                 continue;
             double w = wpiece, a = 0, s;
             if (seg_split_pieces(in->x, (size_t)ceil(r[j].t_start) + 1,
@@ -164,16 +195,20 @@ static tf_status split_runs(const seg_input *in, const seg_run *r, size_t nr, tf
     free(tmp);
     for (size_t j = 0; j < nr; j++) {
         lobe_rec a = {r[j].t_start, r[j].t_end, r[j].k_start, r[j].k_end, r[j].sign,
-                      r[j].start_model, r[j].end_model, 0};
-        double s = -1, w = wsplit;
+                      r[j].start_model, r[j].end_model, 0, NAN};
+        double s = -1, w = wsplit, vstep = NAN;
         if (cand[j]) {
-            s = firing_inside(in, r[j].t_start, r[j].t_end);
-            double a = asplit;
-            if (s < 0 && w > 0 &&
+            /* the gate edge is only known to the sample; the meeting point of the two
+             * pieces is finer, so it is used when the two agree */
+            double g = firing_inside(in, r[j].t_start, r[j].t_end), a = asplit, c = -1;
+            if (w > 0 &&
                 seg_split_pieces(in->x, (size_t)ceil(r[j].t_start) + 1,
                                  (size_t)floor(r[j].t_end) - 1, r[j].t_start, r[j].t_end, &w,
-                                 &a, 1, &s) != 0)
-                s = -1;
+                                 &a, 1, &c) != 0)
+                c = -1;
+            s = g >= 0 ? (c >= 0 && fabs(c - g) < 2.0 ? c : g) : c;
+            if (s >= 0)
+                vstep = voltage_step(in, s);
         }
         if (s < 0) {
             if (push_rec(recs, &a) != 0) {
@@ -187,6 +222,7 @@ static tf_status split_runs(const seg_input *in, const seg_run *r, size_t nr, tf
         a.k1 = SEG_B_FIRING;
         a.m1 = 0;
         a.w = w;
+        a.vstep = vstep;
         b.t0 = s;
         b.k0 = SEG_B_FIRING;
         b.m0 = 0;
@@ -461,6 +497,8 @@ static tf_status build_cycles(const seg_input *in, tf_lobe *L, const lobe_rec *r
             c->overlap_s = 0;
             if (rec[j + 1].k1 == SEG_B_FIRING) {
                 double w = rec[j + 1].w > 0 ? rec[j + 1].w : wsplit;
+                if (isfinite(rec[j + 1].vstep))
+                    c->firing_voltage_s = tf_capture_time(in->cap, 0) + rec[j + 1].vstep * dt;
                 c->overlap_s = w > 0 ? fmax(0, M_PI / w * dt - c->diode_s) : NAN;
                 c->dead_s = 0;
             } else if (j + 2 < nl) {
@@ -477,7 +515,7 @@ static tf_status build_cycles(const seg_input *in, tf_lobe *L, const lobe_rec *r
     return TF_OK;
 }
 
-static void decide_mode(tf_segment_result *r, const lobe_rec *rec)
+static void decide_mode(tf_segment_result *r, const lobe_rec *rec, double dt_s)
 {
     size_t dead = 0, touch = 0, fire = 0, tot = 0;
     double *dv = malloc((r->ncycles + 1) * sizeof *dv);
@@ -515,9 +553,22 @@ static void decide_mode(tf_segment_result *r, const lobe_rec *rec)
     }
     if (fire * 2 > tot) {
         r->mode = TF_MODE_OVERLAPPING;
-        snprintf(r->mode_evidence, sizeof r->mode_evidence,
-                 "%zu of %zu diode intervals are cut short by the next firing (slope break "
-                 "inside a same-sign stretch)", fire, tot);
+        size_t vs = 0, agree = 0;
+        for (size_t i = 0; i < r->ncycles; i++) {
+            const tf_cycle *c = &r->cycles[i];
+            if (c->lobe_diode == (size_t)-1 || !isfinite(c->firing_voltage_s))
+                continue;
+            vs++;
+            double split = r->lobes[c->lobe_diode].end_s;
+            agree += fabs(c->firing_voltage_s - split) <= 3 * dt_s;
+        }
+        int l = snprintf(r->mode_evidence, sizeof r->mode_evidence,
+                         "%zu of %zu diode intervals are cut short by the next firing (slope "
+                         "break inside a same-sign stretch)", fire, tot);
+        if (vs && l > 0 && (size_t)l < sizeof r->mode_evidence)
+            snprintf(r->mode_evidence + l, sizeof r->mode_evidence - (size_t)l,
+                     "; the output voltage steps within 3 samples of %zu of %zu splits", agree,
+                     vs);
     } else if (dead * 2 > tot) {
         r->mode = TF_MODE_NON_OVERLAPPING;
         snprintf(r->mode_evidence, sizeof r->mode_evidence,
@@ -657,7 +708,7 @@ tf_status seg_attribute(const seg_input *in, seg_vec *runs, tf_topology topo,
         st = build_bursts(r, rec);
     }
     if (st == TF_OK) {
-        decide_mode(r, rec);
+        decide_mode(r, rec, in->cap->dt_s);
         size_t m = r->ncycles + 1;
         double *v = malloc(m * sizeof *v);
         if (!v)
