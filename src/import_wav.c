@@ -17,9 +17,11 @@
 
 #include "wav_sidecar.h"
 
-/* Frames read per sf_readf_float call: a few hundred kB of interleaved
- * floats, reused for the whole file. */
+/* Frames read per sf_readf_float call: at most 16384, and at most 1 MiB of
+ * interleaved floats (files may hold up to 1024 channels), reused for the
+ * whole file. */
 #define TF_WAV_BLOCK 16384
+#define TF_WAV_BLOCK_BYTES (1u << 20)
 /* Files of at least this many frames are read by two threads. */
 #define TF_WAV_PARALLEL_MIN (1u << 20)
 
@@ -382,14 +384,16 @@ typedef struct {
 
 static void read_range(SNDFILE *sf, read_part *p)
 {
-    float *buf = malloc(TF_WAV_BLOCK * p->nchan * sizeof *buf);
+    size_t block = TF_WAV_BLOCK_BYTES / (p->nchan * sizeof(float));
+    block = block > TF_WAV_BLOCK ? TF_WAV_BLOCK : block < 16 ? 16 : block;
+    float *buf = malloc(block * p->nchan * sizeof *buf);
     if (!buf) {
         p->nomem = 1;
         return;
     }
     size_t pos = p->from, total = p->to - p->from;
     while (pos < p->to) {
-        size_t want = p->to - pos < TF_WAV_BLOCK ? p->to - pos : TF_WAV_BLOCK;
+        size_t want = p->to - pos < block ? p->to - pos : block;
         sf_count_t got = sf_readf_float(sf, buf, (sf_count_t)want);
         if (got <= 0)
             break;
