@@ -560,6 +560,8 @@ static tf_status run_parse(const tf_csv_source *src, const tf_csv_layout *lay, c
     }
     if (st == TF_OK)
         run_workers(w, *nw, parse_part);
+    if (st == TF_OK && job->opt->progress && !job->opt->quiet_progress)
+        job->opt->progress(job->opt->progress_ctx, 1.0);
     free(out);
     job->out = NULL;
     for (size_t i = 0; i < *nw && st == TF_OK; i++)

@@ -421,6 +421,12 @@ static void test_import_csv_channel_options(void **state)
     assert_samples(&cap->ch[0], c, 3);
     tf_capture_destroy(cap);
 
+    /* columns left out are not parsed: text there is no error */
+    snprintf(opt.channels, sizeof opt.channels, "a");
+    cap = load_text("chan5.csv", "t,a,b\n0,1,2\n1,2,y\n2,3,z\n", &opt);
+    assert_int_equal(cap->nchan, 1);
+    tf_capture_destroy(cap);
+
     tf_error err;
     tf_import_options_init(&opt);
     assert_int_equal(tf_import_options_add(&opt, TF_OPT_SCALE, "b=10A/V", &err), TF_OK);
@@ -493,6 +499,21 @@ static void test_import_csv_python_space(void **state) { (void)state; check_pyth
 
 /* ---- two parser threads ---- */
 
+typedef struct progress_log {
+    int calls;
+    double last;
+    int monotonic;
+} progress_log;
+
+static void on_progress(void *ctx, double fraction)
+{
+    progress_log *log = ctx;
+    if (fraction < log->last || fraction > 1.0)
+        log->monotonic = 0;
+    log->last = fraction;
+    log->calls++;
+}
+
 /* A file above the two-thread threshold with blank lines in the first half:
  * two threads must give exactly what one gives, and an error in the second
  * half must name its true line. */
@@ -520,7 +541,14 @@ static void test_import_csv_two_threads(void **state)
     tf_import_options_init(&two);
     one.threads = 1;
     two.threads = 2;
+    progress_log log = {0, 0.0, 1};
+    two.progress = on_progress;
+    two.progress_ctx = &log;
     tf_capture *a = load(path, &one), *b = load(path, &two);
+    /* progress: several reports, never decreasing, ending at 1 */
+    assert_true(log.calls >= 2);
+    assert_true(log.monotonic);
+    assert_true(log.last == 1.0);
     assert_int_equal(a->n, rows);
     assert_int_equal(b->n, rows);
     for (size_t c = 0; c < 2; c++)
