@@ -528,6 +528,224 @@ static void test_synth_output_plan_wav_subformat(void **state)
     free(d);
 }
 
+/* ---- whole runs through the engine --------------------------------------------------- */
+
+/* A 300 V half-bridge (36 uH, 2.2 uF, 0.45 ohm) at 7 kHz, 2 MS/s for 1 ms, with
+ * every imperfection set. */
+static tf_design *hb_design(void)
+{
+    tf_design *d = base_design(TF_TOPO_HALF_BRIDGE);
+    d->dc_link_v = 300;
+    d->firing_frequency_hz = 7000;
+    d->capacitance_f = 2.2e-6;
+    d->inductance_h = 36e-6;
+    d->resistance_ohm = 0.45;
+    d->thyristor_drop_v = 1.5;
+    d->diode_drop_v = 1.0;
+    d->sample_rate_hz = 2e6;
+    d->duration_s = 1e-3;
+    d->seed = 99;
+    for (int c = 0; c < TF_SYN_NCHAN; c++)
+        d->chan[c].enabled = c < TF_SYN_G3;
+    d->chan[TF_SYN_I_LOAD] = (tf_capture_channel_cfg){1, 0.4, 100.0, 0.0, 12};
+    d->chan[TF_SYN_V_OUT] = (tf_capture_channel_cfg){1, 1.0, 400.0, 50e-9, 10};
+    d->chan[TF_SYN_V_C] = (tf_capture_channel_cfg){1, 1.0, 600.0, 0.0, 12};
+    d->chan[TF_SYN_V_AK1] = (tf_capture_channel_cfg){1, 0.0, 400.0, 0.0, 0};
+    return d;
+}
+
+/* Every line of a written CSV is what printf("%.*e") gives for the in-memory capture
+ * of the same design (reference: C library printf). */
+static void check_csv_against_capture(const char *path, const tf_capture *cap, int td, int vd)
+{
+    size_t len;
+    char *text = tf_test_slurp(path, &len);
+    assert_non_null(text);
+    char *line = strchr(text, '\n');
+    assert_non_null(line);
+    line++;
+    char want[512];
+    for (size_t k = 0; k < cap->n; k++) {
+        int n = snprintf(want, sizeof want, "%.*e", td - 1, cap->t0_s + (double)k * cap->dt_s);
+        for (size_t c = 0; c < cap->nchan; c++)
+            n += snprintf(want + n, sizeof want - (size_t)n, ",%.*e", vd - 1,
+                          (double)cap->ch[c].samples[k]);
+        want[n++] = '\n';
+        want[n] = '\0';
+        if (strncmp(line, want, (size_t)n) != 0)
+            fail_msg("row %zu: got '%.*s', want '%s'", k, n, line, want);
+        line += n;
+    }
+    assert_true(line == text + len);
+    free(text);
+}
+
+static void test_synth_output_csv_matches_capture(void **state)
+{
+    (void)state;
+    tf_error err;
+    tf_design *d = hb_design();
+    d->time_digits = 5; /* 1e-3 s at 2 MS/s: neighbouring times print alike */
+    d->value_digits = 4;
+    d->start_s = -20e-6;
+    const char *path = tf_test_tmpfile("run.csv"), *truth = tf_test_tmpfile("run.json");
+    assert_int_equal(tf_synth_write(d, path, truth, 0, &err), TF_OK);
+    tf_capture *cap;
+    json_t *t;
+    assert_int_equal(tf_synth_to_capture(d, 0, &cap, &t, &err), TF_OK);
+    assert_int_equal(cap->n, 2000);
+    assert_int_equal(cap->nchan, 6);
+    assert_true(cap->t0_s == -20e-6);
+    char *text = tf_test_slurp(path, NULL);
+    assert_memory_equal(text, "time (s),i_load (A),v_out (V),v_c (V),v_ak1 (V),g1,g2\n", 54);
+    assert_memory_equal(text + 54, "-2.0000e-05,", 12);
+    free(text);
+    check_csv_against_capture(path, cap, 5, 4);
+    /* the truth file is the engine's truth plus the capture description */
+    json_error_t je;
+    json_t *file = json_load_file(truth, 0, &je);
+    assert_non_null(file);
+    assert_true(json_equal(file, t));
+    json_t *c = json_object_get(file, "capture");
+    assert_int_equal(json_integer_value(json_object_get(c, "samples")), 2000);
+    assert_int_equal(json_integer_value(json_object_get(c, "seed")), 99);
+    json_decref(file);
+    json_decref(t);
+    tf_capture_destroy(cap);
+    free(d);
+}
+
+static void test_synth_output_same_design_same_bytes(void **state)
+{
+    (void)state;
+    tf_error err;
+    tf_design *d = hb_design();
+    const char *a = tf_test_tmpfile("same1.csv"), *b = tf_test_tmpfile("same2.csv"),
+               *c = tf_test_tmpfile("seed.csv");
+    assert_int_equal(tf_synth_write(d, a, NULL, 0, &err), TF_OK);
+    assert_int_equal(tf_synth_write(d, b, NULL, 0, &err), TF_OK);
+    d->seed = 100;
+    assert_int_equal(tf_synth_write(d, c, NULL, 0, &err), TF_OK);
+    size_t na, nb, nc;
+    char *x = tf_test_slurp(a, &na), *y = tf_test_slurp(b, &nb), *z = tf_test_slurp(c, &nc);
+    assert_true(na == nb);
+    assert_memory_equal(x, y, na);
+    assert_false(na == nc && memcmp(x, z, na) == 0); /* another seed, other noise */
+    free(x);
+    free(y);
+    free(z);
+    free(d);
+}
+
+static void test_synth_output_imperfections(void **state)
+{
+    (void)state;
+    tf_error err;
+    tf_design *d = hb_design();
+    d->duration_s = 2e-3;
+    d->chan[TF_SYN_I_LOAD] = (tf_capture_channel_cfg){1, 0.5, 30.0, 1e-6, 12};
+    tf_capture *noisy, *clean;
+    assert_int_equal(tf_synth_to_capture(d, 0, &noisy, NULL, &err), TF_OK);
+    assert_int_equal(tf_synth_to_capture(d, 1, &clean, NULL, &err), TF_OK);
+    const float *in = noisy->ch[0].samples, *ic = clean->ch[0].samples;
+    double lsb = 60.0 / 4096, s2 = 0, peak = 0;
+    size_t used = 0, clipped = 0, above = 0;
+    for (size_t k = 2; k < noisy->n; k++) {
+        double q = in[k] / lsb;
+        assert_true(fabs(q - floor(q + 0.5)) < 1e-3); /* on the 12-bit grid */
+        assert_true(in[k] >= -30.0f && in[k] <= 30.0f);
+        peak = fmax(peak, fabs(ic[k]));
+        /* skew 1 us = 2 samples: the channel shows i(t - 1 us) */
+        double ref = ic[k - 2];
+        if (fabs(ref) > 33)
+            above++;
+        if (fabs(in[k]) >= 30 - lsb)
+            clipped++;
+        if (fabs(ref) < 27) {
+            s2 += (in[k] - ref) * (in[k] - ref);
+            used++;
+        }
+    }
+    /* source: Gaussian noise of sigma 0.5 A plus uniform quantisation error of
+     * variance LSB^2 / 12 (B. Widrow, quantisation noise model); 5 % on sigma */
+    double want = sqrt(0.25 + lsb * lsb / 12);
+    assert_true(used > 1000);
+    assert_true(fabs(sqrt(s2 / (double)used) / want - 1) < 0.05);
+    /* clipped at the 30 A range wherever the true current is well beyond it */
+    assert_true(peak > 35 && above > 0 && clipped >= above);
+    tf_capture_destroy(noisy);
+    tf_capture_destroy(clean);
+    free(d);
+}
+
+static void test_synth_output_wav_through_importer(void **state)
+{
+    (void)state;
+    tf_error err;
+    tf_design *d = hb_design();
+    d->start_s = 5e-6;
+    d->chan[TF_SYN_V_AK1].bits = 12; /* every analogue channel has bits: PCM_16 */
+    const char *path = tf_test_tmpfile("run.wav");
+    assert_int_equal(tf_synth_write(d, path, NULL, 0, &err), TF_OK);
+    tf_capture *cap, *got;
+    assert_int_equal(tf_synth_to_capture(d, 0, &cap, NULL, &err), TF_OK);
+    tf_import_options o;
+    tf_import_options_init(&o);
+    o.quiet_progress = 1;
+    /* the project's WAV importer reads the sidecar (names, units, full scales, t0) */
+    assert_int_equal(tf_import_wav(path, &o, &got, &err), TF_OK);
+    assert_int_equal(got->nchan, cap->nchan);
+    assert_int_equal(got->n, cap->n);
+    assert_true(fabs(got->t0_s - 5e-6) < 1e-15);
+    assert_true(fabs(got->dt_s - 0.5e-6) < 1e-18);
+    assert_string_equal(got->dialect.wav_subformat, "PCM_16");
+    for (size_t c = 0; c < cap->nchan; c++) {
+        assert_string_equal(got->ch[c].name, cap->ch[c].name);
+        assert_string_equal(got->ch[c].unit, cap->ch[c].unit);
+        for (size_t k = 0; k < cap->n; k++)
+            if (fabs(got->ch[c].samples[k] - cap->ch[c].samples[k]) >
+                1e-6 * fabs(cap->ch[c].samples[k]) + 1e-5)
+                fail_msg("%s[%zu]: %g from the WAV, %g simulated", cap->ch[c].name, k,
+                         got->ch[c].samples[k], cap->ch[c].samples[k]);
+    }
+    tf_capture_destroy(got);
+    tf_capture_destroy(cap);
+    free(d);
+}
+
+static void test_synth_output_refuses_and_leaves_nothing(void **state)
+{
+    (void)state;
+    tf_error err;
+    tf_design *d = hb_design();
+    const char *out = tf_test_tmpfile("keep.csv"), *truth = tf_test_tmpfile("keep.json");
+    assert_int_equal(tf_test_write(truth, "user's file\n"), 0);
+    /* the truth target exists: nothing is written, not even the capture */
+    assert_int_equal(tf_synth_write(d, out, truth, 0, &err), TF_ERR_CANTCREAT);
+    assert_non_null(strstr(err.msg, "keep.json"));
+    assert_null(tf_test_slurp(out, NULL));
+    char *text = tf_test_slurp(truth, NULL);
+    assert_string_equal(text, "user's file\n");
+    free(text);
+    /* with overwrite both are written */
+    assert_int_equal(tf_synth_write(d, out, truth, 1, &err), TF_OK);
+    text = tf_test_slurp(truth, NULL);
+    assert_true(text[0] == '{');
+    free(text);
+    /* an engine error (no inductance) leaves no file and no temporary file */
+    d->inductance_h = NAN;
+    const char *bad = tf_test_tmpfile("bad.wav");
+    assert_int_not_equal(tf_synth_write(d, bad, NULL, 0, &err), TF_OK);
+    assert_null(tf_test_slurp(bad, NULL));
+    char side[1100];
+    snprintf(side, sizeof side, "%s.tfscale", bad);
+    assert_null(tf_test_slurp(side, NULL));
+    assert_int_equal(temp_leftovers(tf_test_tmpdir(), "bad.wav"), 0);
+    assert_int_equal(temp_leftovers(tf_test_tmpdir(), "bad.wav.tfscale"), 0);
+    assert_int_equal(temp_leftovers(tf_test_tmpdir(), "keep.csv"), 0);
+    free(d);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -543,6 +761,11 @@ int main(void)
         cmocka_unit_test(test_synth_output_wav_rate_must_be_whole),
         cmocka_unit_test(test_synth_output_plan_channels),
         cmocka_unit_test(test_synth_output_plan_wav_subformat),
+        cmocka_unit_test(test_synth_output_csv_matches_capture),
+        cmocka_unit_test(test_synth_output_same_design_same_bytes),
+        cmocka_unit_test(test_synth_output_imperfections),
+        cmocka_unit_test(test_synth_output_wav_through_importer),
+        cmocka_unit_test(test_synth_output_refuses_and_leaves_nothing),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
