@@ -41,6 +41,7 @@
  * (scopes store 8 to 16 bits). */
 #define TF_LSB_MAX_LEVELS 1048576.0
 #define TF_LSB_MIN_LEVELS 8.0
+#define TF_LSB_MAX_MULTIPLE 20.0
 
 enum { BLOCK = 256 };
 
@@ -218,10 +219,46 @@ static double fgcd(double a, double b, double tol, double rel)
     return 0;
 }
 
+/* One pass of the step search over the non-zero differences, starting from
+ * the smallest one q. strict: every difference must be a multiple of the
+ * candidate within max(tol, rel * q) (exact data: PCM codes, float values).
+ * loose: only differences of at most TF_LSB_MAX_MULTIPLE candidate steps
+ * decide, within max(tol, rel * difference), since for printed values the
+ * candidate's own error grows with the multiple; beyond that the tolerance
+ * no longer tells a step from noise. Returns the step refined by least
+ * squares, or 0. */
+static double lsb_pass(const double *d, size_t m, double q, double tol, double rel, int loose)
+{
+    size_t used = 0;
+    for (size_t k = 0; k < m && q > 0; k++) {
+        double a = fabs(d[k]);
+        if (a <= tol || (loose && a > TF_LSB_MAX_MULTIPLE * q))
+            continue;
+        used++;
+        double kk = nearbyint(a / q);
+        if (fabs(a - kk * q) > fmax(tol, rel * (loose ? a : q)))
+            q = fgcd(q, a, tol, rel);
+        if (q < 16.0 * tol)
+            return 0;
+    }
+    if (!(q > 0) || used < 16)
+        return 0;
+    double num = 0, den = 0;
+    for (size_t k = 0; k < m; k++) {
+        double a = fabs(d[k]);
+        if (a <= tol || (loose && a > TF_LSB_MAX_MULTIPLE * q))
+            continue;
+        double kk = nearbyint(a / q);
+        num += a * kk;
+        den += kk * kk;
+    }
+    return den > 0 ? num / den : 0;
+}
+
 /* Quantisation step from the sampled differences d (read only): the common
- * spacing of all non-zero differences, refined by least squares; 0 when the
- * spacing is at the float rounding level or the range holds too few or too
- * many levels. */
+ * spacing of the non-zero differences (a strict pass for exact data, then a
+ * loose one for printed values); 0 when the spacing is at the float rounding
+ * level or the range holds too few or too many levels. */
 static double lsb_estimate(const double *d, size_t m, double lo, double hi)
 {
     double scale = fmax(fabs(lo), fabs(hi));
@@ -229,44 +266,24 @@ static double lsb_estimate(const double *d, size_t m, double lo, double hi)
      * by about FLT_EPSILON * scale */
     double tol = 4.0 * FLT_EPSILON * scale;
     const double rel = 2e-3; /* printed values (6 digits) stay within this */
-    double q = INFINITY;
+    double q0 = INFINITY;
     size_t nz = 0;
     for (size_t k = 0; k < m; k++) {
         double a = fabs(d[k]);
         if (a > tol) {
             nz++;
-            q = a < q ? a : q;
+            q0 = a < q0 ? a : q0;
         }
     }
     if (nz < 16)
         return 0;
-    for (size_t k = 0; k < m && q > 0; k++) {
-        double a = fabs(d[k]);
-        if (a <= tol)
-            continue;
-        double kk = nearbyint(a / q);
-        if (fabs(a - kk * q) > fmax(tol, rel * q))
-            q = fgcd(q, a, tol, rel);
-        if (q < 16.0 * tol)
-            return 0;
+    for (int loose = 0; loose < 2; loose++) {
+        double q = lsb_pass(d, m, q0, tol, rel, loose);
+        double levels = q > 0 ? (hi - lo) / q : 0;
+        if (q >= 16.0 * tol && levels <= TF_LSB_MAX_LEVELS && levels >= TF_LSB_MIN_LEVELS)
+            return q;
     }
-    if (!(q > 0))
-        return 0;
-    double num = 0, den = 0;
-    for (size_t k = 0; k < m; k++) {
-        double a = fabs(d[k]);
-        if (a <= tol)
-            continue;
-        double kk = nearbyint(a / q);
-        num += a * kk;
-        den += kk * kk;
-    }
-    if (den > 0)
-        q = num / den;
-    double levels = (hi - lo) / q;
-    if (!(q >= 16.0 * tol) || levels > TF_LSB_MAX_LEVELS || levels < TF_LSB_MIN_LEVELS)
-        return 0;
-    return q;
+    return 0;
 }
 
 /* Length of the run of samples equal to x[k] going back from k (inclusive). */

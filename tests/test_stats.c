@@ -93,6 +93,10 @@ static void test_stats_mad_sigma_gaussian(void **state)
         assert_true(tf_test_reldiff(s.noise_sigma, sigma) < 0.04);
         assert_true(tf_stats_noise_sigma(x, n) == s.noise_sigma);
         assert_true(s.lsb == 0); /* continuous values: not quantised */
+        for (size_t k = 0; k < n; k++) /* also without the offset that hides it in rounding */
+            x[k] -= 5.0f;
+        tf_stats_compute(x, n, &s);
+        assert_true(s.lsb == 0);
         assert_int_equal(s.clipped_samples, 0);
         free(x);
     }
@@ -167,6 +171,17 @@ static void test_stats_lsb_quantised(void **state)
     }
     tf_stats_compute(x, n, &s);
     assert_int_equal(s.clipped_samples, 0);
+    /* 8-bit codes of 7.8125 mV printed with 6 significant digits, as a CSV
+     * export writes them ("%.6g"), then read back: the step survives */
+    double q8 = 0.0078125;
+    char txt[32];
+    for (size_t k = 0; k < n; k++) {
+        double code = nearbyint(120 * sin(2 * M_PI * (double)k / 5000.0) + 2.0 * gauss());
+        snprintf(txt, sizeof txt, "%.6g", 3.0 + code * q8);
+        x[k] = (float)strtod(txt, NULL);
+    }
+    tf_stats_compute(x, n, &s);
+    assert_true(tf_test_reldiff(s.lsb, q8) < 1e-4);
     /* two levels only (a noise-free square wave): not a quantisation step */
     for (size_t k = 0; k < n; k++)
         x[k] = (k / 100) % 2 ? 200.0f : -200.0f;
