@@ -2,6 +2,7 @@
 #include <tankfit/segment.h>
 
 #include <math.h>
+#include <pthread.h>
 #include <stdint.h>
 #include <stdlib.h>
 #include <string.h>
@@ -133,7 +134,8 @@ static int is_zero_kind(seg_bkind k) { return k == SEG_B_DEAD || k == SEG_B_TOUC
 
 /* Runs j..q form a chain of pieces sharing zeros (see seg_chain_fit): fit it and put
  * every boundary on the model. Returns 1 when done. */
-static int refine_chain(const seg_input *in, seg_run *r, size_t j, size_t q, double prior[2])
+static int refine_chain(const seg_input *in, seg_run *r, size_t j, size_t q, double prior[2],
+                        int ts_only)
 {
     size_t np = q - j + 1;
     double med = 0, lo = INFINITY, hi = 0;
@@ -156,6 +158,8 @@ static int refine_chain(const seg_input *in, seg_run *r, size_t j, size_t q, dou
     if (prior[0] > 0 && fabs(prior[0] - w) < 0.03 * w) {
         w = prior[0];
         a = prior[1];
+    } else {
+        ts_only = 0;
     }
     for (size_t p = j; p <= q; p++) {
         /* amplitude from the lobe's peak, at a quarter period into its piece */
@@ -163,10 +167,16 @@ static int refine_chain(const seg_input *in, seg_run *r, size_t j, size_t q, dou
         amp[p - j] = (double)r[p].pk * exp(a * tp) * r[j].sign; /* A_p sin(w tau) has the lobe sign */
     }
     size_t k1 = r[q].k_end == SEG_B_EDGE ? r[q].i1 : r[q].i1 - 1;
-    if (seg_chain_fit(in->x, r[j].i0 + 1, k1, in->clips, in->nclips, np, amp, &ts, &w, &a) != 0)
+    if (seg_chain_fit(in->x, r[j].i0 + 1, k1, in->clips, in->nclips, np, amp, ts_only, &ts, &w,
+                      &a) != 0)
         return 0;
-    prior[0] = w;
-    prior[1] = a;
+    if (!ts_only) {
+        /* held values for the quick fits: a running mean of the full fits, so that the
+         * bursts in between do not all share one fit's noise */
+        int fresh = !(prior[0] > 0) || fabs(prior[0] - w) > 0.01 * w;
+        prior[0] = fresh ? w : 0.75 * prior[0] + 0.25 * w;
+        prior[1] = fresh ? a : 0.75 * prior[1] + 0.25 * a;
+    }
     double half = M_PI / w;
     for (size_t p = j; p <= q; p++) {
         double t0 = ts + (double)(p - j) * half, t1 = t0 + half;
@@ -184,6 +194,46 @@ static int refine_chain(const seg_input *in, seg_run *r, size_t j, size_t q, dou
         }
     }
     return 1;
+}
+
+/* Records at least this long fit their chains on two threads. */
+#define SEG_THREAD_SAMPLES 2000000
+/* A full chain fit (w and decay too) at least every this many bursts. */
+#define SEG_FULL_EVERY 8u
+
+typedef struct chain_job {
+    const seg_input *in;
+    seg_run *r;
+    size_t from, to, n;
+} chain_job;
+
+static void *chain_worker(void *arg)
+{
+    chain_job *c = arg;
+    seg_run *r = c->r;
+    double prior[2] = {0, 0};
+    unsigned since_full = SEG_FULL_EVERY;
+    for (size_t j = c->from; j < c->to; j++) {
+        if (!is_zero_kind(r[j].k_start))
+            continue;
+        size_t q = j;
+        /* a ring-down's tail fades into the noise: the chain keeps the strong lobes */
+        while (q + 1 < c->n && r[q].k_end == SEG_B_DIRECT && q - j + 1 < 64 &&
+               r[q + 1].pk > 3 * c->in->band)
+            q++;
+        if (q == j)
+            continue;
+        /* w and the decay are refitted every few bursts (they follow a heating load);
+         * in between only the start and the amplitudes */
+        int quick = since_full < SEG_FULL_EVERY;
+        int ok = refine_chain(c->in, r, j, q, prior, quick);
+        if (!ok && quick)
+            ok = refine_chain(c->in, r, j, q, prior, (quick = 0));
+        since_full = ok && !quick ? 1 : since_full + 1;
+        if (ok)
+            j = q;
+    }
+    return NULL;
 }
 
 /* Zero of lobe j's own model near its start (end = 0) or end (end = 1). */
@@ -214,18 +264,24 @@ void seg_refine_boundaries(const seg_input *in, seg_vec *runs, tf_topology topo)
     /* a reset choke (single switch) adds a slow current: the pieces no longer share
      * zeros, so each lobe gets its own model with an offset term */
     int single = topo == TF_TOPO_SINGLE;
+    (void)prior;
     /* chains: from a lobe rising out of zero, through straight crossings, to a lobe
-     * that returns to zero (or runs off the record) */
-    for (size_t j = 0; j < runs->n && !single; j++) {
-        if (!is_zero_kind(r[j].k_start))
-            continue;
-        size_t q = j;
-        /* a ring-down's tail fades into the noise: the chain keeps the strong lobes */
-        while (q + 1 < runs->n && r[q].k_end == SEG_B_DIRECT && q - j + 1 < 64 &&
-               r[q + 1].pk > 3 * in->band)
-            q++;
-        if (q > j && refine_chain(in, r, j, q, prior))
-            j = q;
+     * that returns to zero (or runs off the record); two threads on long records */
+    if (!single) {
+        size_t mid = runs->n;
+        if (in->n >= SEG_THREAD_SAMPLES && runs->n >= 8) {
+            mid = runs->n / 2;
+            while (mid < runs->n && !is_zero_kind(r[mid].k_start))
+                mid++;
+        }
+        chain_job jobs[2] = {{in, r, 0, mid, runs->n}, {in, r, mid, runs->n, runs->n}};
+        pthread_t th;
+        int threaded = mid < runs->n && pthread_create(&th, NULL, chain_worker, &jobs[1]) == 0;
+        chain_worker(&jobs[0]);
+        if (threaded)
+            pthread_join(th, NULL);
+        else if (mid < runs->n)
+            chain_worker(&jobs[1]);
     }
     double *zs = malloc((runs->n + 1) * 3 * sizeof *zs);
     if (!zs)

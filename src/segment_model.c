@@ -327,7 +327,7 @@ static int split_at(const float *x, size_t k0, size_t k1, size_t s, double z0, d
  * touches one amplitude, so the normal matrix is accumulated per piece in locals. */
 static int chain_step(const float *x, size_t k0, size_t k1, size_t stride,
                       const seg_clip *clips, size_t nclips, size_t np, double ts, double w,
-                      double a, double *amp, int linear_only, double *delta)
+                      double a, double *amp, int linear_only, int ts_only, double *delta)
 {
     const size_t m = np + 3;
     double jtj[(CHAIN_MAX + 3) * (CHAIN_MAX + 3)], jtr[CHAIN_MAX + 3];
@@ -399,6 +399,24 @@ static int chain_step(const float *x, size_t k0, size_t k1, size_t stride,
         }
         return 0;
     }
+    if (ts_only) {
+        /* w and a held: the amplitudes and ts alone (column np + 2 of the full system) */
+        const size_t mr = np + 1;
+        double jr[(CHAIN_MAX + 1) * (CHAIN_MAX + 1)], rr1[CHAIN_MAX + 1];
+        memset(jr, 0, mr * mr * sizeof *jr);
+        for (size_t p = 0; p < np; p++) {
+            jr[p * mr + p] = jtj[p * m + p];
+            jr[p * mr + np] = jr[np * mr + p] = jtj[p * m + np + 2];
+            rr1[p] = jtr[p];
+        }
+        jr[np * mr + np] = n22;
+        rr1[np] = r2;
+        if (spd_solve(jr, rr1, delta, mr) != 0)
+            return -1;
+        delta[np + 2] = delta[np];
+        delta[np] = delta[np + 1] = 0;
+        return 0;
+    }
     double nn[6] = {n00, n01, n02, n11, n12, n22}, rr[3] = {r0, r1, r2};
     const int idx[3][3] = {{0, 1, 2}, {1, 3, 4}, {2, 4, 5}};
     for (int q = 0; q < 3; q++) {
@@ -410,7 +428,7 @@ static int chain_step(const float *x, size_t k0, size_t k1, size_t stride,
 }
 
 int seg_chain_fit(const float *x, size_t k0, size_t k1, const seg_clip *clips, size_t nclips,
-                  size_t np, const double *amp0, double *ts, double *w, double *a)
+                  size_t np, const double *amp0, int ts_only, double *ts, double *w, double *a)
 {
     if (np < 1 || np > CHAIN_MAX || k1 <= k0 + 16 || !(*w > 0))
         return -1;
@@ -421,10 +439,10 @@ int seg_chain_fit(const float *x, size_t k0, size_t k1, const seg_clip *clips, s
     size_t per = (size_t)(M_PI / ww), stride = per / SEG_CHAIN_SAMPLES + 1;
     if (amp0)
         memcpy(amp, amp0, np * sizeof *amp);
-    else if (chain_step(x, k0, k1, stride, clips, nclips, np, t, ww, aa, amp, 1, d) != 0)
+    else if (chain_step(x, k0, k1, stride, clips, nclips, np, t, ww, aa, amp, 1, 0, d) != 0)
         return -1;
     for (int it = 0; it < 8; it++) {
-        if (chain_step(x, k0, k1, stride, clips, nclips, np, t, ww, aa, amp, 0, d) != 0)
+        if (chain_step(x, k0, k1, stride, clips, nclips, np, t, ww, aa, amp, 0, ts_only, d) != 0)
             return -1;
         double dw = d[np], da = d[np + 1], dts = d[np + 2];
         if (!isfinite(dw) || !isfinite(da) || !isfinite(dts) || fabs(dw) > 0.2 * ww ||
@@ -435,7 +453,9 @@ int seg_chain_fit(const float *x, size_t k0, size_t k1, const seg_clip *clips, s
         ww += dw;
         aa += da;
         t += dts;
-        if (fabs(dts) < 1e-2 && fabs(dw) < 1e-6 * ww)
+        /* quadratic convergence: from a start within a few samples one step leaves
+         * ts within about 1e-3 sample when w and a are held */
+        if (fabs(dts) < 2e-2 && fabs(dw) < 1e-6 * ww)
             break;
     }
     if (!(ww > 0) || !isfinite(t))

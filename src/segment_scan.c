@@ -150,11 +150,23 @@ static double minabs(const float *x, size_t a, size_t b)
     return m;
 }
 
+/* Samples a run's current takes to cross the band near its zero, from its own shape
+ * (a half sine of its length and peak): bounds a noisy line's extrapolation. */
+static double band_travel(const seg_run *r, double band)
+{
+    double len = (double)(r->i1 - r->i0 + 1);
+    return band * len / (M_PI * (double)r->pk) + 1.0;
+}
+
 /* Classify the gap between runs a and b and set their boundaries. */
-static void classify_gap(const float *x, seg_run *a, seg_run *b)
+static void classify_gap(const float *x, double band, seg_run *a, seg_run *b)
 {
     double ze = edge_zero(x, a, 1), zs = edge_zero(x, b, 0);
     double lo = (double)a->i1, hi = (double)b->i0;
+    /* a line through a few noisy samples may point far away: at most three times the
+     * travel the lobe's own shape allows */
+    ze = fmin(ze, lo + 3 * band_travel(a, band));
+    zs = fmax(zs, hi - 3 * band_travel(b, band));
     ze = ze < lo ? lo : ze > hi ? hi : ze;
     zs = zs < ze ? ze : zs > hi ? hi : zs;
     double dead = zs - ze, travel = (ze - lo) + (hi - zs);
@@ -228,7 +240,7 @@ tf_status seg_runs_from_excursions(const float *x, size_t n, double band, const 
     }
     seg_run *r = runs->data;
     for (size_t j = 0; j + 1 < runs->n; j++)
-        classify_gap(x, &r[j], &r[j + 1]);
+        classify_gap(x, band, &r[j], &r[j + 1]);
     if (runs->n) {
         /* capture edges: a lobe cut by the record start or end is partial */
         seg_run *f = &r[0], *l = &r[runs->n - 1];
