@@ -512,6 +512,34 @@ static void test_import_wav_two_threads(void **state)
     assert_non_null(strstr(load_fail(f, NULL, TF_ERR_DATA), "frame 1000001: expected finite"));
 }
 
+static void test_import_wav_fixtures_regenerate(void **state)
+{
+    (void)state;
+    /* the stored golden-case fixtures are what SoX and the script beside them
+     * write: regenerate them and compare byte for byte */
+    assert_true(tf_test_have("sox"));
+    const char *out = tf_test_tmpfile("fixtures");
+    assert_int_equal(tf_test_system("sh '%s' '%s' >/dev/null", tf_test_src("tests/cli/wav_fixtures.sh"),
+                                    out), 0);
+    const char *files[] = {"cli/wav_sine.wav", "cli/wav_scaled.wav", "cli/wav_scaled.wav.tfscale",
+                           "cli/wav_clipped.wav", "bad/wav_truncated.wav",
+                           "bad/wav_zero_channels.wav", "bad/wav_bad_sidecar.wav",
+                           "bad/wav_bad_sidecar.wav.tfscale"};
+    for (size_t k = 0; k < sizeof files / sizeof files[0]; k++) {
+        char stored[512], fresh[1200];
+        snprintf(stored, sizeof stored, "tests/%s", files[k]);
+        snprintf(fresh, sizeof fresh, "%s/%s", out, files[k]);
+        size_t la, lb;
+        char *a = tf_test_slurp(tf_test_src(stored), &la), *b = tf_test_slurp(fresh, &lb);
+        assert_non_null(a);
+        assert_non_null(b);
+        assert_int_equal(la, lb);
+        assert_memory_equal(a, b, la);
+        free(a);
+        free(b);
+    }
+}
+
 static void progress_cb(void *ctx, double fraction)
 {
     double *last = ctx;
@@ -574,6 +602,7 @@ int main(void)
         cmocka_unit_test(test_import_wav_dispatch_and_rate),
         cmocka_unit_test(test_import_wav_more_formats),
         cmocka_unit_test(test_import_wav_two_threads),
+        cmocka_unit_test(test_import_wav_fixtures_regenerate),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

@@ -1,9 +1,12 @@
 #!/bin/sh
 # Regenerates the tiny WAV fixtures of the wav_*/inspect_* golden cases with SoX
 # (Debian sox) and Debian's python3 standard library. Invented signals only.
-# Usage: sh tests/cli/wav_fixtures.sh   (from the top of the tree)
+# Usage: sh tests/cli/wav_fixtures.sh [OUTDIR]   (default: the tests/ directory itself;
+# test_import_wav regenerates them into a temporary OUTDIR and compares byte for byte)
 set -eu
-cd "$(dirname "$0")/.."
+out=${1:-$(cd "$(dirname "$0")/.." && pwd)}
+mkdir -p "$out/cli" "$out/bad"
+cd "$out"
 # 10 ms at 48 kHz: two 1 kHz sines of amplitude 0.5 and 0.25 of full scale
 sox -D -n -r 48000 -c 2 -b 16 -e signed-integer cli/wav_sine.wav \
     synth 0.01 sine 1000 sine 1000 remix 1v0.5 2v0.25
@@ -38,4 +41,4 @@ open('bad/wav_bad_sidecar.wav', 'wb').write(header(2, 64) + bytes(64))
 open('bad/wav_bad_sidecar.wav.tfscale', 'w').write(
     '# bad: line 3 has no full-scale value\nv_out V 500\ni_load A\n')
 PY
-echo "fixtures written under tests/cli and tests/bad"
+echo "fixtures written under $out/cli and $out/bad"
