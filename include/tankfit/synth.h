@@ -21,7 +21,16 @@ typedef struct tf_synth_interval {
                                   * ([tank] values, or the [schedule] at that time) */
 } tf_synth_interval;
 
-/* Opaque engine. */
+/* Opaque engine.
+ *
+ * Channels (docs/simulator.md section 1): i_load, the load current (A, positive through
+ * T1); v_out, the voltage across the series L-R-C network, so v_out = L di/dt + R i + v_c
+ * (the bridge output level while a device conducts, v_c while nothing does); v_c, the
+ * capacitor voltage in the same frame (series half-bridge and single: above the negative
+ * rail; split half-bridge: the C1/C2 node minus dc_link / 2; full bridge: across the
+ * capacitor; ring-down: along the loop, starting at -precharge_v); v_ak1, T1's
+ * anode-cathode voltage including stray L di/dt while D1 conducts; g1..g4, gate pulses
+ * (1 while high). */
 typedef struct tf_synth tf_synth;
 
 /* Width of a gate pulse: 10 us, or a quarter of the firing period when that is
