@@ -16,8 +16,6 @@
  * authors recommend. Same seed, same stream on every platform. */
 typedef struct tf_sw_rng {
     uint64_t s[4];
-    double spare;     /* second normal deviate of the polar method */
-    int has_spare;
 } tf_sw_rng;
 
 /* Seed a generator from (seed, stream): each channel gets its own stream so its
@@ -30,8 +28,9 @@ uint64_t tf_sw_rng_next(tf_sw_rng *r);
 /* Uniform double in [0, 1) with 53 random bits. */
 double tf_sw_rng_uniform(tf_sw_rng *r);
 
-/* Standard normal deviate by Marsaglia's polar method (G. Marsaglia and T. A. Bray,
- * "A convenient method for generating normal variables", SIAM Review 6(3), 1964). */
+/* Standard normal deviate: GSL's ziggurat (G. Marsaglia and W. W. Tsang, "The ziggurat
+ * method for generating random variables", J. Statistical Software 5(8), 2000) driven
+ * by this generator's upper 32 bits. */
 double tf_sw_rng_normal(tf_sw_rng *r);
 
 /* The imperfections of one scope channel: add noise (sigma in the channel's unit),

@@ -16,7 +16,7 @@ static const uint64_t p10u[] = {1ULL, 10ULL, 100ULL, 1000ULL, 10000ULL, 100000UL
                                 10000000000000ULL, 100000000000000ULL, 1000000000000000ULL};
 
 /* a * 10^s with one rounding where |s| <= 22 */
-static double scale10(double a, int s)
+static inline double scale10(double a, int s)
 {
     if (s >= 0) {
         while (s > 22) {
@@ -33,25 +33,65 @@ static double scale10(double a, int s)
     return a / p10[s];
 }
 
-/* round(v * 10^s) for the decimal digits of v, v > 0: the scaled value is rounded
- * once; when its fraction is within 1e-6 (+ 2 ulp) of one half, the exact residual of that
- * rounding (an FMA) decides, ties to even as printf does. */
-static double round_scaled(double v, int s)
+/* round(v * 10^s) for the decimal digits of v, v > 0, x = v * 10^s rounded once
+ * (x < 2^53): when the fraction of x is within 1e-6 (+ 2 ulp) of one half, the
+ * exact residual of that rounding (an FMA) decides, ties to even as printf does.
+ * Returns -1 when |s| > 22 near a tie (two roundings: the caller asks printf). */
+static inline double round_scaled(double v, int s, double x)
 {
-    double x = scale10(v, s);
-    double f = floor(x), fr = x - f;
+    double f = (double)(int64_t)x, fr = x - f; /* x < 2^53: one instruction each way */
     double side = fr - 0.5;
-    if (fabs(side) < 1e-6 + x * 4.5e-16) {
-        if (s < -22 || s > 22)
-            return -1; /* two roundings: let printf decide */
-        if (s >= 0)
-            side += fma(v, p10[s], -x);             /* v 10^s - x, exact */
-        else
-            side += fma(-x, p10[-s], v) / p10[-s];  /* (v - x 10^-s) / 10^-s */
-    }
+    if (side > 1e-6 + x * 4.5e-16)
+        return f + 1;
+    if (side < -1e-6 - x * 4.5e-16)
+        return f;
+    if (s < -22 || s > 22)
+        return -1;
+    if (s >= 0)
+        side += fma(v, p10[s], -x);            /* v 10^s - x, exact */
+    else
+        side += fma(-x, p10[-s], v) / p10[-s]; /* (v - x 10^-s) / 10^-s */
     if (side > 0 || (side == 0 && fmod(f, 2.0) != 0))
         return f + 1;
     return f;
+}
+
+static const char two_digits[201] = "00010203040506070809101112131415161718192021222324"
+                                    "25262728293031323334353637383940414243444546474849"
+                                    "50515253545556575859606162636465666768697071727374"
+                                    "75767778798081828384858687888990919293949596979899";
+
+/* the digits of m, exactly n of them (with leading zeros), into out */
+static inline void put_digits(char *out, uint64_t m, int n)
+{
+    char *p = out + n;
+    if (m < 4294967296u) { /* values: 32-bit arithmetic is cheaper */
+        uint32_t w = (uint32_t)m;
+        while (w >= 100 && n >= 2) {
+            uint32_t q = w / 100;
+            p -= 2;
+            memcpy(p, two_digits + 2 * (w - q * 100), 2);
+            w = q;
+            n -= 2;
+        }
+        while (n-- > 0) {
+            *--p = (char)('0' + w % 10);
+            w /= 10;
+        }
+        return;
+    }
+    while (m >= 100 && n >= 2) {
+        uint64_t q = m / 100;
+        unsigned r = (unsigned)(m - q * 100);
+        p -= 2;
+        memcpy(p, two_digits + 2 * r, 2);
+        m = q;
+        n -= 2;
+    }
+    while (n-- > 0) {
+        *--p = (char)('0' + m % 10);
+        m /= 10;
+    }
 }
 
 size_t tf_sw_format_sci(char *out, double v, int digits)
@@ -61,7 +101,7 @@ size_t tf_sw_format_sci(char *out, double v, int digits)
         digits = 1;
     if (digits > 15)
         digits = 15;
-    if (isnan(v)) {
+    if (v != v) {
         memcpy(out, "nan", 3);
         return 3;
     }
@@ -70,46 +110,45 @@ size_t tf_sw_format_sci(char *out, double v, int digits)
         *p++ = '-';
         v = -v;
     }
-    if (isinf(v)) {
+    if (v > 1.7976931348623157e308) {
         memcpy(p, "inf", 3);
         return (size_t)(p - out) + 3;
     }
     uint64_t m = 0;
     int e = 0;
-    if (v == 0) {
-        if (p != out)
-            p = out; /* "-0" prints as "0" */
-    } else {
-        int e2;
-        frexp(v, &e2);
-        e = (int)floor((e2 - 1) * 0.30102999566398120); /* log10(2) */
+    if (v != 0) {
+        uint64_t bits;
+        memcpy(&bits, &v, sizeof bits);
+        int e2 = (int)((bits >> 52) & 0x7ff) - 1023;
+        /* floor(e2 log10 2) within one; 1233 / 4096 ~ log10 2 */
+        e = e2 >= 0 ? (e2 * 1233) >> 12 : -((-e2 * 1233 + 4095) >> 12);
+        if (e2 == -1023) /* subnormal */
+            e = (int)floor(log10(v));
+        double x = 0;
         for (int tries = 0; tries < 4; tries++) {
-            double s = round_scaled(v, digits - 1 - e);
-            if (s < 0) {
-                char tmp[40];
-                int n = snprintf(tmp, sizeof tmp, "%.*e", digits - 1, neg ? -v : v);
-                memcpy(out, tmp, (size_t)n);
-                return (size_t)n;
-            }
-            if (s >= (double)p10u[digits]) {
+            x = scale10(v, digits - 1 - e);
+            if (x >= p10[digits])
                 e++;
-                continue;
-            }
-            if (s < (double)p10u[digits - 1]) {
+            else if (x < p10[digits - 1])
                 e--;
-                continue;
-            }
-            m = (uint64_t)s;
-            break;
+            else
+                break;
         }
-        if (m == 0) /* rounding straddles a power of ten: 9.99..5 -> 1.00..0 e+1 */
+        double r = round_scaled(v, digits - 1 - e, x);
+        if (r < 0) {
+            char tmp[40];
+            int n = snprintf(tmp, sizeof tmp, "%.*e", digits - 1, neg ? -v : v);
+            memcpy(out, tmp, (size_t)n);
+            return (size_t)n;
+        }
+        m = (uint64_t)(int64_t)r;
+        if (m >= p10u[digits]) { /* 9.99..5 rounds up to 1.00..0 e+1 */
             m = p10u[digits - 1];
+            e++;
+        }
     }
     char dig[16];
-    for (int i = digits - 1; i >= 0; i--) {
-        dig[i] = (char)('0' + m % 10);
-        m /= 10;
-    }
+    put_digits(dig, m, digits);
     *p++ = dig[0];
     if (digits > 1) {
         *p++ = '.';
@@ -127,9 +166,8 @@ size_t tf_sw_format_sci(char *out, double v, int digits)
         *p++ = (char)('0' + e / 100);
         e %= 100;
     }
-    *p++ = (char)('0' + e / 10);
-    *p++ = (char)('0' + e % 10);
-    return (size_t)(p - out);
+    memcpy(p, two_digits + 2 * e, 2);
+    return (size_t)(p - out) + 2;
 }
 
 #define CSV_BUF (1u << 20)

@@ -1,6 +1,8 @@
 /* Scope imperfections of simulated channels: seeded Gaussian noise, clipping, ADC quantisation. */
 #include "synth_write.h"
 
+#include <gsl/gsl_randist.h>
+#include <gsl/gsl_rng.h>
 #include <math.h>
 
 /* splitmix64 (S. Vigna's public-domain reference, after G. Steele, D. Lea and
@@ -23,8 +25,6 @@ void tf_sw_rng_seed(tf_sw_rng *r, uint64_t seed, uint64_t stream)
     uint64_t y = splitmix64(&x) ^ (stream * 0xd1b54a32d192ed03ULL);
     for (int i = 0; i < 4; i++)
         r->s[i] = splitmix64(&y);
-    r->has_spare = 0;
-    r->spare = 0;
 }
 
 uint64_t tf_sw_rng_next(tf_sw_rng *r)
@@ -46,22 +46,27 @@ double tf_sw_rng_uniform(tf_sw_rng *r)
     return (double)(tf_sw_rng_next(r) >> 11) * 0x1.0p-53;
 }
 
+/* xoshiro256** as a GSL generator of 32-bit words (the upper half of each output),
+ * so GSL's ziggurat turns it into normal deviates */
+static unsigned long gsl_get(void *state)
+{
+    return (unsigned long)(tf_sw_rng_next((tf_sw_rng *)state) >> 32);
+}
+
+static double gsl_get_double(void *state) { return tf_sw_rng_uniform((tf_sw_rng *)state); }
+
+static void gsl_set(void *state, unsigned long seed)
+{
+    tf_sw_rng_seed((tf_sw_rng *)state, seed, 0);
+}
+
+static const gsl_rng_type xoshiro_type = {"xoshiro256**", 0xffffffffUL, 0, sizeof(tf_sw_rng),
+                                          gsl_set, gsl_get, gsl_get_double};
+
 double tf_sw_rng_normal(tf_sw_rng *r)
 {
-    if (r->has_spare) {
-        r->has_spare = 0;
-        return r->spare;
-    }
-    double u, v, s;
-    do {
-        u = 2.0 * tf_sw_rng_uniform(r) - 1.0;
-        v = 2.0 * tf_sw_rng_uniform(r) - 1.0;
-        s = u * u + v * v;
-    } while (s >= 1.0 || s == 0.0);
-    double m = sqrt(-2.0 * log(s) / s);
-    r->spare = v * m;
-    r->has_spare = 1;
-    return u * m;
+    gsl_rng g = {&xoshiro_type, r};
+    return gsl_ran_gaussian_ziggurat(&g, 1.0);
 }
 
 tf_status tf_sw_scope_init(tf_sw_scope *sc, const tf_capture_channel_cfg *cfg, const char *name,
@@ -96,9 +101,11 @@ tf_status tf_sw_scope_init(tf_sw_scope *sc, const tf_capture_channel_cfg *cfg, c
 
 void tf_sw_scope_apply(tf_sw_scope *sc, float *x, size_t n)
 {
-    if (sc->noise > 0)
+    if (sc->noise > 0) {
+        gsl_rng g = {&xoshiro_type, &sc->rng};
         for (size_t k = 0; k < n; k++)
-            x[k] = (float)((double)x[k] + sc->noise * tf_sw_rng_normal(&sc->rng));
+            x[k] = (float)((double)x[k] + gsl_ran_gaussian_ziggurat(&g, sc->noise));
+    }
     if (sc->range > 0 && sc->bits == 0) {
         float hi = (float)sc->range, lo = -hi;
         for (size_t k = 0; k < n; k++)
@@ -107,8 +114,11 @@ void tf_sw_scope_apply(tf_sw_scope *sc, float *x, size_t n)
         double lsb = 2.0 * sc->range / ldexp(1.0, sc->bits);
         double qmax = ldexp(1.0, sc->bits - 1) - 1, qmin = -ldexp(1.0, sc->bits - 1);
         for (size_t k = 0; k < n; k++) {
-            double q = floor((double)x[k] / lsb + 0.5);
-            q = q > qmax ? qmax : (q < qmin ? qmin : q);
+            /* clamp first (also keeps the conversion in range), then round half up:
+             * floor(y + 0.5) by truncation of a value kept >= 0 */
+            double y = (double)x[k] / lsb;
+            y = y > qmax ? qmax : (y < qmin ? qmin : y);
+            double q = (double)(int64_t)(y - qmin + 0.5) + qmin;
             x[k] = (float)(q * lsb);
         }
     }

@@ -78,13 +78,17 @@ tf_status tf_sw_wav_write(tf_sw_wav *w, const float *const ch[], size_t n, tf_er
             for (size_t c = 0; c < nc; c++) {
                 /* code = value / LSB, LSB = 2 FS / 2^bits; 16-bit code = code * 2^(16-bits),
                  * i.e. value * 32768 / FS */
-                double k = 32768.0 / w->lay.full_scale[c];
                 double step = ldexp(1.0, 16 - w->lay.bits[c]);
+                double k = 32768.0 / w->lay.full_scale[c] / step;
+                double hi = 32767.0 / step, lo = -32768.0 / step;
                 const float *x = ch[c] + k0;
                 for (size_t j = 0; j < m; j++) {
-                    double q = floor((double)x[j] * k / step + 0.5) * step;
-                    q = q > 32767.0 ? 32767.0 : (q < -32768.0 ? -32768.0 : q);
-                    w->ibuf[j * nc + c] = (short)q;
+                    /* the value is already on the ADC grid: its code, clamped, rounded
+                     * half up by truncation of a value kept >= 0 */
+                    double q = (double)x[j] * k;
+                    q = q > hi ? hi : (q < lo ? lo : q);
+                    q = ((double)(int64_t)(q - lo + 0.5) + lo) * step;
+                    w->ibuf[j * nc + c] = (short)(q > 32767.0 ? 32767.0 : q);
                 }
             }
             done = sf_writef_short(w->sf, w->ibuf, (sf_count_t)m);
