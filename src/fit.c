@@ -629,7 +629,7 @@ static tf_status run_vi_power(const tf_capture *cap, const tf_roles *roles,
                 snprintf(r->skew_method, sizeof r->skew_method, "v-i residual");
             }
         } else if (st == TF_ERR_NUMERIC) {
-            add_note(r, "v-i identification failed: %s", err->msg);
+            add_note(r, "v-i identification failed: %.150s", err->msg);
             tf_error_clear(err);
             st = TF_OK;
         }

@@ -15,6 +15,7 @@
 #define PENCIL_MAX 128   /* decimated samples used by the matrix pencil */
 #define NCACHE 6         /* GSL workspaces kept per thread (by padded length) */
 #define RESYNC 256       /* recompute exp/cos/sin exactly every RESYNC samples */
+#define FINE_MAX 512     /* first-stage block averages of the pencil start */
 
 typedef struct cache_ent {
     size_t n, p;
@@ -26,7 +27,7 @@ struct tf_dsfit_workspace {
     cache_ent cache[NCACHE];
     unsigned long tick;
     double hank[PENCIL_MAX * PENCIL_MAX], vmat[PENCIL_MAX * PENCIL_MAX];
-    double sv[PENCIL_MAX], svwork[PENCIL_MAX], dec[PENCIL_MAX];
+    double sv[PENCIL_MAX], svwork[PENCIL_MAX], dec[PENCIL_MAX], fine[FINE_MAX];
     gsl_eigen_nonsymm_workspace *eig;
     gsl_matrix *covar[2];    /* 4x4 and 5x5 */
     double *cross[2], *csign[2]; /* crossing positions (samples) and drop signs */
@@ -240,41 +241,51 @@ static int cb_df(const gsl_vector *x, void *ctx, gsl_matrix *J)
 static int pencil_start(tf_dsfit_workspace *w, const float *x, size_t n, int order,
                         double *a_out, double *w_out)
 {
+    /* one pass: averages of s0 samples (at most FINE_MAX of them); peak, crossings and
+     * the pencil's coarser blocks come from these */
+    const size_t s0 = n > FINE_MAX ? (n + FINE_MAX - 1) / FINE_MAX : 1, nf = n / s0;
     double peak = 0;
-    for (size_t k = 0; k < n; k++)
-        if (fabs(x[k]) > peak)
-            peak = fabs(x[k]);
+    for (size_t m = 0; m < nf; m++) {
+        double acc = 0;
+        for (size_t q = 0; q < s0; q++)
+            acc += x[m * s0 + q];
+        w->fine[m] = acc / (double)s0;
+        if (fabs(w->fine[m]) > peak)
+            peak = fabs(w->fine[m]);
+    }
     if (!(peak > 0))
         return -1;
     /* crossings with hysteresis (20 % of peak) give samples per period */
     size_t cross = 0;
     int state = 0;
-    for (size_t k = 0; k < n; k++) {
-        int s = x[k] > 0.2 * peak ? 1 : (x[k] < -0.2 * peak ? -1 : 0);
-        if (s && s != state) {
+    for (size_t m = 0; m < nf; m++) {
+        int sg = w->fine[m] > 0.2 * peak ? 1 : (w->fine[m] < -0.2 * peak ? -1 : 0);
+        if (sg && sg != state) {
             if (state)
                 cross++;
-            state = s;
+            state = sg;
         }
     }
-    double spp = 2.0 * (double)n / (double)(cross + 1);
-    size_t s = (size_t)(spp / 20.0);
-    if (s > n / 24)
-        s = n / 24;
-    if (s < 1)
-        s = 1;
-    size_t nd = n / s;
+    const double spp = 2.0 * (double)nf / (double)(cross + 1); /* in fine blocks */
+    size_t g = (size_t)(spp / 20.0);
+    if (g > nf / 24)
+        g = nf / 24;
+    if (g < 1)
+        g = 1;
+    const size_t s = g * s0;
+    size_t nd = nf / g;
     if (nd > PENCIL_MAX)
         nd = PENCIL_MAX;
     if (nd < 8)
         return -1;
     for (size_t m = 0; m < nd; m++) {
         double acc = 0;
-        for (size_t q = 0; q < s; q++)
-            acc += x[m * s + q];
-        w->dec[m] = acc / (double)s;
+        for (size_t q = 0; q < g; q++)
+            acc += w->fine[m * g + q];
+        w->dec[m] = acc / (double)g;
     }
-    const size_t L = (nd - 1) / 2, rows = nd - L, cols = L + 1;
+    /* pencil parameter L = N / 3, the low end of Hua and Sarkar's N/3..N/2 (smaller SVD) */
+    const size_t L = nd / 3 > (size_t)order ? nd / 3 : (size_t)order + 1, rows = nd - L, cols = L + 1;
     gsl_matrix_view Y = gsl_matrix_view_array(w->hank, rows, cols);
     for (size_t r = 0; r < rows; r++)
         for (size_t c = 0; c < cols; c++)
@@ -383,7 +394,9 @@ static size_t model_crossings(tf_dsfit_workspace *w, int b, const double *p, con
         double si, tr, ti;
         walk_at(&s, m, k, &si, &tr, &ti);
         const double kd = (double)k, cur = c1 * s.pr + c2 * s.pi + c0 + si;
-        if (k > 0 && ((prev > 0 && cur <= 0) || (prev < 0 && cur >= 0))) {
+        const double lobe = M_PI / p[1], kc = k > 0 ? kd - 1.0 + prev / (prev - cur) : 0;
+        if (k > 0 && ((prev > 0 && cur <= 0) || (prev < 0 && cur >= 0)) && kc >= 0.1 * lobe &&
+            kc <= (double)(m->n - 1) - 0.1 * lobe) {
             if (nc == w->ccap[b]) {
                 size_t nc2 = w->ccap[b] ? 2 * w->ccap[b] : 64;
                 double *q1 = realloc(w->cross[b], nc2 * sizeof *q1);
@@ -396,12 +409,46 @@ static size_t model_crossings(tf_dsfit_workspace *w, int b, const double *p, con
                 w->csign[b] = q2;
                 w->ccap[b] = nc2;
             }
-            w->cross[b][nc] = kd - 1.0 + prev / (prev - cur);
+            w->cross[b][nc] = kc;
             w->csign[b][nc] = prev > 0 ? 1.0 : -1.0; /* the step opposes the new lobe */
             nc++;
         }
         prev = cur;
         walk_next(&s);
+    }
+    return nc;
+}
+
+/* The same crossings without a pass over the data, for the model without offset:
+ * the plain sinusoid vanishes at k_m = (m pi - phi) / w, and so does every drop term
+ * started at such a zero (same period), so these are the full model's zeros too.
+ * Zeros within a tenth of a lobe of the window's ends (the firing, the end of
+ * conduction) are not commutations and get no term. */
+static size_t analytic_crossings(tf_dsfit_workspace *w, int b, const double *p, size_t n)
+{
+    const double phi = atan2(p[2], p[3]), wv = p[1], lobe = M_PI / wv;
+    size_t nc = 0;
+    for (long m = 0;; m++) {
+        const double k = ((double)m * M_PI - phi) / wv;
+        if (k > (double)(n - 1) - 0.1 * lobe)
+            break;
+        if (k < 0.1 * lobe)
+            continue;
+        if (nc == w->ccap[b]) {
+            size_t nc2 = w->ccap[b] ? 2 * w->ccap[b] : 64;
+            double *q1 = realloc(w->cross[b], nc2 * sizeof *q1);
+            if (!q1)
+                return (size_t)-1;
+            w->cross[b] = q1;
+            double *q2 = realloc(w->csign[b], nc2 * sizeof *q2);
+            if (!q2)
+                return (size_t)-1;
+            w->csign[b] = q2;
+            w->ccap[b] = nc2;
+        }
+        w->cross[b][nc] = k;
+        w->csign[b][nc] = (m % 2) ? 1.0 : -1.0; /* sin is positive just before odd m pi */
+        nc++;
     }
     return nc;
 }
@@ -434,32 +481,65 @@ static int run_lm(gsl_multifit_nlinear_workspace *ws, model_ctx *m, double *par,
  * normal equations H = J^T J, g = J^T r (p x p, row-major), without storing J. */
 static double accumulate(const double *p, const model_ctx *m, double *H, double *g)
 {
-    const double c1 = p[2], c2 = p[3], c0 = m->p == 5 ? p[4] : 0.0;
+    const double a = p[0], wv = p[1], c1 = p[2], c2 = p[3], c0 = m->p == 5 ? p[4] : 0.0;
+    const double ea = exp(-a), zr = ea * cos(wv), zi = ea * sin(wv);
     double rss = 0;
     double h[15] = {0}, gg[5] = {0};
     const int full = m->p == 5;
-    walk s;
-    walk_init(&s, p[0], p[1]);
-    for (size_t k = 0; k < m->n; k++) {
-        double si, tr, ti;
-        walk_at(&s, m, k, &si, &tr, &ti);
-        const double kd = (double)k, pr = s.pr, pi = s.pi;
-        const double base = c1 * pr + c2 * pi;
-        const double r = base + c0 + si - (double)m->x[k];
-        rss += r * r;
-        if (H) {
-            const double j0 = -kd * base - ti, j1 = kd * (c2 * pr - c1 * pi) + tr;
-            const double j2 = pr, j3 = pi;
-            h[0] += j0 * j0; h[1] += j0 * j1; h[2] += j0 * j2; h[3] += j0 * j3;
-            h[4] += j1 * j1; h[5] += j1 * j2; h[6] += j1 * j3;
-            h[7] += j2 * j2; h[8] += j2 * j3; h[9] += j3 * j3;
-            gg[0] += j0 * r; gg[1] += j1 * r; gg[2] += j2 * r; gg[3] += j3 * r;
-            if (full) {
-                h[10] += j0; h[11] += j1; h[12] += j2; h[13] += j3; h[14] += 1.0;
-                gg[4] += r;
+    /* Between crossings the drop terms are P_k times constants (see walk): the model is
+     * e1 pr + e2 pi with e1 = c1 + Im Cs, e2 = c2 + Re Cs, and the Jacobian adds
+     * P_k Ct terms; so each stretch runs the plain loop with its own constants. */
+    double csr = 0, csi = 0, ctr = 0, cti = 0;
+    size_t j = 0, k = 0;
+    while (k < m->n) {
+        while (j < m->ncross && m->cross[j] <= (double)k) {
+            const double cc = m->cross[j], e = exp(a * cc) * m->dsign[j] * m->drop;
+            const double dr = e * cos(wv * cc), di = -e * sin(wv * cc);
+            csr += dr;
+            csi += di;
+            ctr += cc * dr;
+            cti += cc * di;
+            j++;
+        }
+        size_t kend = m->n;
+        if (j < m->ncross) {
+            const double nx = ceil(m->cross[j]);
+            if (nx < (double)kend)
+                kend = (size_t)nx;
+        }
+        if (kend <= k)
+            kend = k + 1;
+        const double e1 = c1 + csi, e2 = c2 + csr;
+        for (; k < kend;) {
+            /* exact start of each block of RESYNC samples, recurrence inside */
+            size_t kb = k + RESYNC - k % RESYNC;
+            if (kb > kend)
+                kb = kend;
+            const double e0 = exp(-a * (double)k);
+            double pr = e0 * cos(wv * (double)k), pi = e0 * sin(wv * (double)k);
+            for (; k < kb; k++) {
+                const double kd = (double)k;
+                const double base = e1 * pr + e2 * pi;
+                const double r = base + c0 - (double)m->x[k];
+                rss += r * r;
+                if (H) {
+                    const double j0 = -kd * base + cti * pr + ctr * pi;
+                    const double j1 = kd * (e2 * pr - e1 * pi) - ctr * pr + cti * pi;
+                    const double j2 = pr, j3 = pi;
+                    h[0] += j0 * j0; h[1] += j0 * j1; h[2] += j0 * j2; h[3] += j0 * j3;
+                    h[4] += j1 * j1; h[5] += j1 * j2; h[6] += j1 * j3;
+                    h[7] += j2 * j2; h[8] += j2 * j3; h[9] += j3 * j3;
+                    gg[0] += j0 * r; gg[1] += j1 * r; gg[2] += j2 * r; gg[3] += j3 * r;
+                    if (full) {
+                        h[10] += j0; h[11] += j1; h[12] += j2; h[13] += j3; h[14] += 1.0;
+                        gg[4] += r;
+                    }
+                }
+                const double t0 = pr * zr - pi * zi;
+                pi = pr * zi + pi * zr;
+                pr = t0;
             }
         }
-        walk_next(&s);
     }
     if (H) {
         const size_t P = m->p;
@@ -624,7 +704,7 @@ static tf_status fit_core(int use_gsl, tf_dsfit_workspace *w, const float *x, si
         m.drop = drop;
         for (int round = 0; round < 4; round++) {
             const int nb = 1 - cur;
-            size_t nc = model_crossings(w, nb, par, &m);
+            size_t nc = offset ? model_crossings(w, nb, par, &m) : analytic_crossings(w, nb, par, n);
             if (nc == (size_t)-1)
                 return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
             double shift = INFINITY;
@@ -639,6 +719,15 @@ static tf_status fit_core(int use_gsl, tf_dsfit_workspace *w, const float *x, si
             m.ncross = nc;
             if (shift < 1e-2) /* a hundredth of a sample: far below the noise */
                 break;
+            if (round == 0 && nc > 0) {
+                /* start closer: after the first commutation the plain fit sees the
+                 * envelope A e^{-at} reduced by D e^{a k1}, which it reads as extra
+                 * decay of about -(w / pi) ln(1 - (D / A) e^{a k1}) */
+                const double A = hypot(par[2], par[3]);
+                const double rel = drop / A * exp(par[0] * m.cross[0]);
+                if (A > 0 && rel > 0 && rel < 0.5)
+                    par[0] += par[1] / M_PI * log(1.0 - rel);
+            }
             if ((use_gsl ? run_lm(ws, &m, par, maxit, &iters)
                          : run_fast(&m, par, maxit, &iters, H, &rss)) != 0)
                 return tf_error_set(err, TF_ERR_NUMERIC, "drop-corrected fit did not converge");
