@@ -305,6 +305,42 @@ static double gate_on_time(const tf_synth *s, int pos, double a, double b)
     return on;
 }
 
+/* Peak current and shortest turn-off time of conductions starting in [a, b). */
+static void period_figures(const tf_synth *r, double a, double b, double *ipk, double *toff)
+{
+    *ipk = 0;
+    *toff = INFINITY;
+    for (size_t k = 0; k < r->niv; k++)
+        if (r->iv[k].start_s >= a && r->iv[k].start_s < b)
+            *ipk = fmax(*ipk, fabs(r->iv[k].peak_a));
+    for (size_t k = 0; k < r->nto; k++) {
+        const tf_synth_turnoff *t = &r->to[k];
+        if (t->start_s >= a && t->start_s < b && isfinite(t->forward_s - t->zero_s))
+            *toff = fmin(*toff, t->forward_s - t->zero_s);
+    }
+}
+
+/* The last whole firing period of the window, and whether it repeats the one before
+ * (peak current and turn-off time within 0.1 %): the design-expected steady values. */
+static json_t *last_period_json(const tf_synth *r, const tf_synth_accum *A)
+{
+    double b = A->pe, a = b - A->period, ipk, toff, ipk0, toff0;
+    period_figures(r, a, b, &ipk, &toff);
+    json_t *o = json_object();
+    json_object_set_new(o, "start_s", json_real(a));
+    json_object_set_new(o, "end_s", json_real(b));
+    json_object_set_new(o, "peak_current_a", json_real(ipk));
+    json_object_set_new(o, "t_off_min_s", num(toff));
+    int steady = 0;
+    if (A->nper >= 2) {
+        period_figures(r, a - A->period, a, &ipk0, &toff0);
+        steady = fabs(ipk - ipk0) <= 1e-3 * ipk &&
+                 (!isfinite(toff) || fabs(toff - toff0) <= 1e-3 * toff);
+    }
+    json_object_set_new(o, "steady", json_boolean(steady));
+    return o;
+}
+
 static json_t *build_json(tf_synth *r, const tf_synth_accum *A)
 {
     json_t *o = json_object();
@@ -405,6 +441,11 @@ static json_t *build_json(tf_synth *r, const tf_synth_accum *A)
     }
     json_object_set_new(o, "commutation_failures", fl);
     json_object_set_new(o, "tank_model_valid_until_s", num(r->shoot_through_s));
+
+    if (A->nper > 0)
+        json_object_set_new(o, "last_period", last_period_json(r, A));
+    else
+        json_object_set_new(o, "last_period", json_null());
 
     double W = A->we - A->ws;
     json_t *rms = json_object();

@@ -138,6 +138,22 @@ static void test_synth_half_bridge_sequence(void **state)
         assert_true(positive ? pk > 0 : pk < 0);
     }
     assert_string_equal(json_string_value(json_object_get(j, "mode")), "non-overlapping");
+    /* 4 periods from rest at Q = 10 are not yet steady (the peaks still grow) */
+    json_t *lp = json_object_get(j, "last_period");
+    assert_false(json_is_true(json_object_get(lp, "steady")));
+    json_decref(j);
+    tf_synth_destroy(s);
+    /* after 40 periods they are: the start-up transient decays by exp(-alpha Td) per
+     * damped cycle conducted (textbook series RLC response), 80 cycles give exp(-25) */
+    d->start_s = 18e-3;
+    s = make(d);
+    j = truth(s);
+    lp = json_object_get(j, "last_period");
+    assert_true(json_is_true(json_object_get(lp, "steady")));
+    double L = d->inductance_h, C = d->capacitance_f, R = d->resistance_ohm;
+    double wd = sqrt(1 / (L * C) - R * R / (4 * L * L));
+    assert_true(tf_test_reldiff(json_real_value(json_object_get(lp, "t_off_min_s")), M_PI / wd) <
+                1e-9);
     json_decref(j);
     tf_synth_destroy(s);
     free(d);
