@@ -9,11 +9,6 @@
 #include <tankfit/capture.h>
 #include <tankfit/import.h>
 
-/* compiled in here so that libFuzzer's coverage sees the importer and the
- * sidecar parser (the library itself is built without coverage) */
-#include "../../src/import_wav.c"
-#include "../../src/wav_sidecar.c"
-
 int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size);
 
 int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size)

@@ -5,9 +5,7 @@
 #include <stdlib.h>
 #include <string.h>
 
-/* compiled in here so that libFuzzer's coverage sees the parser (the library
- * itself is built without coverage instrumentation) */
-#include "../../src/wav_sidecar.c"
+#include "../../src/wav_sidecar.h" /* private parser, in the instrumented library */
 
 int LLVMFuzzerTestOneInput(const uint8_t *data, size_t size);
 
