@@ -226,7 +226,13 @@ static tf_status find_changes(tf_track_result *t, double penalty, tf_error *err)
             ch->fd_before_hz = f[0] + sf * vals[2];
             ch->fd_after_hz = f[0] + sf * vals[3];
             ch->fd_step_hz = ch->fd_after_hz - ch->fd_before_hz;
-            ch->step = fabs(vals[1] - vals[0]) > 4.0 || fabs(vals[3] - vals[2]) > 4.0;
+            /* a step: a jump beyond 4 noise sigmas that also matters physically
+             * (2 % of R_eff or 0.5 % of fd; a magnetic transition moves both by far
+             * more); smaller significant changes are reported as trend changes */
+            ch->step = (fabs(vals[1] - vals[0]) > 4.0 &&
+                        fabs(ch->r_step_ohm) > 0.02 * fabs(ch->r_before_ohm)) ||
+                       (fabs(vals[3] - vals[2]) > 4.0 &&
+                        fabs(ch->fd_step_hz) > 0.005 * fabs(ch->fd_before_hz));
         }
         ncp = nout;
         free(pm);
