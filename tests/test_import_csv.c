@@ -129,6 +129,29 @@ static void test_import_csv_semicolon_decimal_comma_bom_crlf(void **state)
     tf_capture_destroy(cap);
 }
 
+static void test_import_csv_metadata_key_value(void **state)
+{
+    (void)state;
+    /* key,value metadata with as many fields as the data: the header is the
+     * line of names followed by numbers, everything before it is metadata */
+    tf_capture *cap = load_text("kv.csv",
+                                "Model,invented recorder\nRecord length,3\nSample rate,1e6\n"
+                                "t,v\n0,1\n1e-6,2\n2e-6,3\n",
+                                NULL);
+    assert_int_equal(cap->dialect.header_line, 4);
+    assert_int_equal(cap->nmeta, 3);
+    assert_string_equal(cap->metadata[1], "Record length,3");
+    assert_int_equal(cap->n, 3);
+    tf_capture_destroy(cap);
+    /* no header: metadata stops at the first row of numbers */
+    cap = load_text("kv2.csv", "Sample rate,1e6\n0,1\n1e-6,2\n2e-6,3\n", NULL);
+    assert_int_equal(cap->dialect.header_line, 0);
+    assert_int_equal(cap->nmeta, 1);
+    assert_int_equal(cap->n, 3);
+    assert_string_equal(cap->ch[0].name, "col2");
+    tf_capture_destroy(cap);
+}
+
 static void test_import_csv_tab_cr_no_header(void **state)
 {
     (void)state;
@@ -588,6 +611,7 @@ int main(void)
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_import_csv_comma_header_units),
         cmocka_unit_test(test_import_csv_semicolon_decimal_comma_bom_crlf),
+        cmocka_unit_test(test_import_csv_metadata_key_value),
         cmocka_unit_test(test_import_csv_tab_cr_no_header),
         cmocka_unit_test(test_import_csv_space_runs),
         cmocka_unit_test(test_import_csv_quotes_trailing_delimiter_spaces),
