@@ -1088,10 +1088,47 @@ static void test_synth_random_designs(void **state)
     }
 }
 
+/* Single switch with a stiff reset choke: in the dead zone the capacitor rings with the
+ * choke, and once it rises a diode drop above the link D1 conducts on its own (the diode
+ * conducts while forward-biased); energy still balances. */
+static void test_synth_single_diode_from_dead_zone(void **state)
+{
+    (void)state;
+    tf_design *d = design_new(TF_TOPO_SINGLE);
+    d->dc_link_v = 300;
+    d->resistance_ohm = 0.2;
+    d->firing_frequency_hz = 500;
+    d->reset_inductance_h = 2e-3;
+    d->reset_resistance_ohm = 0.05;
+    d->turnoff_time_s = 5e-6;
+    tf_synth *s = make(d);
+    advance(s, 3e-3);
+    size_t n;
+    const tf_synth_interval *iv = tf_synth_intervals(s, &n);
+    double t_d1 = NAN;
+    for (size_t k = 1; k < n; k++)
+        if (iv[k].device == TF_DEV_D1 && iv[k].start_s > iv[k - 1].end_s + 1e-6) {
+            t_d1 = iv[k].start_s;
+            break;
+        }
+    assert_true(isfinite(t_d1));
+    tf_synth *b = make(d);
+    tf_synth_point p;
+    tf_error e;
+    assert_int_equal(tf_synth_eval(b, t_d1, &p, &e), TF_OK);
+    assert_int_equal(p.device, TF_DEV_D1);
+    assert_true(tf_test_reldiff(p.ch[TF_SYN_V_C], d->dc_link_v + d->diode_drop_v) < 1e-9);
+    tf_synth_destroy(b);
+    tf_synth_destroy(s);
+    check_energy(d, 3e-3, "single, diode from dead zone");
+    free(d);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_synth_truth_harmonics_numpy),
+        cmocka_unit_test(test_synth_single_diode_from_dead_zone),
         cmocka_unit_test(test_synth_random_designs),
         cmocka_unit_test(test_synth_single_modal_vs_expm),
         cmocka_unit_test(test_synth_truth_closed_form_vs_quadrature),
