@@ -154,6 +154,29 @@ struct tf_synth {
     void *eig_ws;                /* single: gsl_eigen_nonsymmv workspace */
 };
 
+static inline double tf__or0(double v) { return v != v ? 0.0 : v; } /* NAN counts as 0 */
+
+/* Check a design for the engine (messages name section and key). */
+tf_status tf__check_design(const tf_design *d, tf_error *err);
+
+/* Start of the latest gate pulse of pos at or before t (-INFINITY none). */
+double tf__last_pulse(const tf_synth *s, int pos, double t);
+
+/* Anode-cathode voltage of the thyristor at pos in conduction state cs, without the
+ * stray L di/dt term. */
+double tf__vak_static(const tf_synth *s, int pos, int cs, double vc);
+
+/* Segment k of the kept history (0: oldest). */
+static inline tf_seg *tf__seg_at(tf_synth *s, size_t k) { return &s->seg[s->seg_first + k]; }
+
+/* Append a segment (NULL: out of memory); drop segments wholly before t_min_request. */
+tf_seg *tf__seg_push(tf_synth *s);
+void tf__seg_trim(tf_synth *s);
+
+/* Fill g as the segment starting at t0 in conduction state cs from state x, with the
+ * event that ends it. */
+void tf__build_segment(tf_synth *s, tf_seg *g, double t0, int cs, const double x[3]);
+
 /* Firing n of the sequence: time and position; 0 when there is none. */
 int tf__firing(const tf_synth *s, size_t n, double *t, int *pos);
 
