@@ -12,14 +12,13 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
-#include <sys/mman.h>
 #include <sys/stat.h>
 #include <unistd.h>
 
 #include "csv_internal.h"
 #include "numparse.h"
 
-#define CHUNK ((size_t)4 << 20)          /* bytes mapped and handed to libcsv per call */
+#define CHUNK ((size_t)1 << 20)          /* bytes read and handed to libcsv per call */
 #ifndef TF_CSV_MIN_SPLIT                 /* smaller files use one thread (the fuzz */
 #define TF_CSV_MIN_SPLIT ((size_t)8 << 20) /* harness lowers it to reach both) */
 #endif
@@ -209,34 +208,23 @@ static void on_row(int term, void *ctx)
     w->line++;
 }
 
-/* ---- a window of the file: mapped read-only (no copy), else read into a buffer ---- */
+/* ---- a window of the file, read into a buffer ---- */
 
+/* pread into a buffer, not mmap: a file truncated by another program while it
+ * is read must give an I/O error, not SIGBUS. The copy costs a few per cent. */
 typedef struct view {
     const char *p;
     size_t len;
-    void *map;
-    size_t map_len;
-    char *buf;                           /* fallback buffer (CHUNK bytes), made on demand */
+    char *buf;                           /* CHUNK bytes, made on first use */
 } view;
 
-/* Make [off, off + len) readable at v->p; len <= CHUNK and within the file.
- * Mapping one window at a time keeps the file's pages out of the resident set
- * once passed (they stay in the page cache). Returns 0 or -1 on a read error. */
+/* Make [off, off + len) readable at v->p; len <= CHUNK. Returns 0, or -1 on a
+ * read error or a short read (the file shrank). */
 static int view_get(const tf_csv_source *src, size_t off, size_t len, view *v)
 {
-    v->map = NULL;
     v->len = len;
     if (src->fd < 0) {
         v->p = (const char *)src->mem + off;
-        return 0;
-    }
-    size_t page = (size_t)sysconf(_SC_PAGESIZE), a = off - off % page;
-    void *m = mmap(NULL, len + (off - a), PROT_READ, MAP_PRIVATE | MAP_POPULATE, src->fd,
-                   (off_t)a);
-    if (m != MAP_FAILED) {
-        v->map = m;
-        v->map_len = len + (off - a);
-        v->p = (const char *)m + (off - a);
         return 0;
     }
     if (!v->buf && !(v->buf = malloc(CHUNK)))
@@ -245,13 +233,6 @@ static int view_get(const tf_csv_source *src, size_t off, size_t len, view *v)
         return -1;
     v->p = v->buf;
     return 0;
-}
-
-static void view_put(view *v)
-{
-    if (v->map)
-        munmap(v->map, v->map_len);
-    v->map = NULL;
 }
 
 /* ---- the two passes over a part: count line ends, then parse ---- */
@@ -273,7 +254,6 @@ static void *count_part(void *arg)
             n += v.p[i] == term;
         w->terms += n;
         w->quotes |= memchr(v.p, '"', want) != NULL;
-        view_put(&v);
         off += want;
     }
     free(v.buf);
@@ -311,7 +291,6 @@ static void *parse_part(void *arg)
             break;
         }
         size_t used = csv_parse(&p, v.p, want, on_field, on_row, w);
-        view_put(&v);
         if (used != want && !w->status)
             fail(w, TF_ERR_DATA, w->col + 1,
                  "expected fields of at most 1 MiB, found a longer one (lines longer than "
