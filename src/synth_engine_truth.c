@@ -80,6 +80,15 @@ static double complex cint(double complex m, double a, double b)
 
 #define NMODE 3
 
+/* Integral of exp(m tau) over [a, a + D] given ema = exp(m a) and emd = exp(m D). */
+static double complex int_exp(double complex m, double D, double complex ema, double complex emd)
+{
+    double complex z = m * D;
+    if (cabs(z) < 0.5)
+        return (z == 0) ? ema * D : ema * cexpm1_(z) / m;
+    return ema * (emd - 1) / m;
+}
+
 /* Channel values of a segment as K + sum_m Re(C_m exp(lam_m tau)), tau = t - t0, when the
  * segment has that form: rest, an underdamped 2-state model away from critical damping,
  * or a 3-state interval with a verified modal form. Returns the number of modes, -1 when
@@ -180,18 +189,31 @@ static void accum_modal(tf_synth *s, const tf_seg *g, double a, double b, int ha
         lv += creal(C[iv][m] * I1[m]);
     }
     A->pw += K[iv] * K[ii] * D + K[iv] * li + K[ii] * lv + cross(nm, C[iv], C[ii], lam, ta, tb);
+    /* orders n = 0..NHARM: the exponentials of -j n w t by rotation, expm1 directly only
+     * where its argument is small (short spans), so each order costs a few products */
     double wf = 2 * M_PI / A->period;
+    double complex r_ph = cexp(-I * wf * (g->t0 - A->ps)), r_a = cexp(-I * wf * ta);
+    double complex r_d = cexp(-I * wf * D), ph = 1, qa = 1, qd = 1;
+    double complex la[NMODE], ld[NMODE];
+    for (int m = 0; m < nm; m++) {
+        la[m] = cexp(lam[m] * ta);
+        ld[m] = cexp(lam[m] * D);
+    }
     for (int n = 0; n <= NHARM; n++) {
         double complex jw = I * (n * wf);
-        double complex ph = cexp(-jw * (g->t0 - A->ps)), Ik = cint(-jw, ta, tb);
+        double complex Ik = int_exp(-jw, D, qa, qd);
         double complex si = K[ii] * Ik, sv = K[iv] * Ik;
         for (int m = 0; m < nm; m++) {
-            double complex Ip = cint(lam[m] - jw, ta, tb), Im = cint(conj(lam[m]) - jw, ta, tb);
+            double complex Ip = int_exp(lam[m] - jw, D, la[m] * qa, ld[m] * qd);
+            double complex Im = int_exp(conj(lam[m]) - jw, D, conj(la[m]) * qa, conj(ld[m]) * qd);
             si += 0.5 * (C[ii][m] * Ip + conj(C[ii][m]) * Im);
             sv += 0.5 * (C[iv][m] * Ip + conj(C[iv][m]) * Im);
         }
         A->hi[n] += ph * si;
         A->hv[n] += ph * sv;
+        ph *= r_ph;
+        qa *= r_a;
+        qd *= r_d;
     }
 }
 
