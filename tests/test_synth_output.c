@@ -713,6 +713,36 @@ static void test_synth_output_wav_through_importer(void **state)
     free(d);
 }
 
+static void test_synth_output_csv_through_importer(void **state)
+{
+    (void)state;
+    tf_error err;
+    tf_design *d = hb_design();
+    d->value_digits = 7;
+    const char *path = tf_test_tmpfile("import.csv");
+    assert_int_equal(tf_synth_write(d, path, NULL, 0, &err), TF_OK);
+    tf_capture *cap, *got;
+    assert_int_equal(tf_synth_to_capture(d, 0, &cap, NULL, &err), TF_OK);
+    tf_import_options o;
+    tf_import_options_init(&o);
+    o.quiet_progress = 1;
+    /* the project's CSV importer finds the time base and units in what synth wrote */
+    assert_int_equal(tf_import_csv(path, &o, &got, &err), TF_OK);
+    assert_int_equal(got->nchan, cap->nchan);
+    assert_int_equal(got->n, cap->n);
+    assert_true(fabs(got->dt_s - cap->dt_s) < 1e-6 * cap->dt_s);
+    for (size_t c = 0; c < cap->nchan; c++) {
+        assert_string_equal(got->ch[c].name, cap->ch[c].name);
+        assert_string_equal(got->ch[c].unit, cap->ch[c].unit);
+        for (size_t k = 0; k < cap->n; k++)
+            assert_true(fabs(got->ch[c].samples[k] - cap->ch[c].samples[k]) <=
+                        6e-7 * fabs(cap->ch[c].samples[k]) + 1e-30);
+    }
+    tf_capture_destroy(got);
+    tf_capture_destroy(cap);
+    free(d);
+}
+
 static void test_synth_output_refuses_and_leaves_nothing(void **state)
 {
     (void)state;
@@ -765,6 +795,7 @@ int main(void)
         cmocka_unit_test(test_synth_output_same_design_same_bytes),
         cmocka_unit_test(test_synth_output_imperfections),
         cmocka_unit_test(test_synth_output_wav_through_importer),
+        cmocka_unit_test(test_synth_output_csv_through_importer),
         cmocka_unit_test(test_synth_output_refuses_and_leaves_nothing),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
