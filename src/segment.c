@@ -150,12 +150,16 @@ static int refine_chain(const seg_input *in, seg_run *r, size_t j, size_t q, dou
     size_t nfull = 0;
     for (size_t p = j; p <= q; p++)
         nfull += !((p == q && r[q].k_end == SEG_B_EDGE) || r[p].pk < 8 * in->band);
-    if (!nfull || hi > 1.2 * lo || r[j].i1 < r[j].i0 + 10)
+    if (!nfull || hi > 1.2 * lo || r[j].i1 < r[j].i0 + 10) {
         return 0;
+    }
     med /= (double)nfull;
     double ts = r[j].t_start, w = M_PI / med, a = 0, amp[64];
     /* the tank changes slowly: the last chain's w and decay are the better priors */
     if (prior[0] > 0 && fabs(prior[0] - w) < 0.03 * w) {
+        /* held w only while the lobes still agree with it (a load step moves it) */
+        if (fabs(prior[0] - w) > 0.01 * w)
+            ts_only = 0;
         w = prior[0];
         a = prior[1];
     } else {
@@ -168,8 +172,9 @@ static int refine_chain(const seg_input *in, seg_run *r, size_t j, size_t q, dou
     }
     size_t k1 = r[q].k_end == SEG_B_EDGE ? r[q].i1 : r[q].i1 - 1;
     if (seg_chain_fit(in->x, r[j].i0 + 1, k1, in->clips, in->nclips, np, amp, ts_only, &ts, &w,
-                      &a) != 0)
+                      &a) != 0) {
         return 0;
+    }
     if (!ts_only) {
         /* held values for the quick fits: a running mean of the full fits, so that the
          * bursts in between do not all share one fit's noise */
@@ -178,12 +183,15 @@ static int refine_chain(const seg_input *in, seg_run *r, size_t j, size_t q, dou
         prior[1] = fresh ? a : 0.75 * prior[1] + 0.25 * a;
     }
     double half = M_PI / w;
+    /* a quick fit (w held) must land on the rough boundaries within their own scatter */
+    double lim = ts_only ? 3.0 + 0.01 * half : 0.1 * half;
     for (size_t p = j; p <= q; p++) {
         double t0 = ts + (double)(p - j) * half, t1 = t0 + half;
         if (r[p].pk >= 8 * in->band &&
-            (fabs(t0 - r[p].t_start) > 0.1 * half ||
-             (r[p].k_end != SEG_B_EDGE && fabs(t1 - r[p].t_end) > 0.1 * half)))
+            (fabs(t0 - r[p].t_start) > lim ||
+             (r[p].k_end != SEG_B_EDGE && fabs(t1 - r[p].t_end) > lim))) {
             return 0;
+        }
     }
     for (size_t p = j; p <= q; p++) {
         r[p].t_start = ts + (double)(p - j) * half;

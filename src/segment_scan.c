@@ -246,7 +246,7 @@ tf_status seg_runs_from_excursions(const float *x, size_t n, double band, const 
         seg_run *f = &r[0], *l = &r[runs->n - 1];
         double zs = edge_zero(x, f, 0);
         if (f->i0 > 0 && ((zs > 1.0 && (double)f->i0 - zs < 0.5 * zs) ||
-                          (zs > -1.0 && fabsf(x[0]) <= band))) {
+                          (zs > -5.0 && fabsf(x[0]) <= band))) {
             /* a rest before the lobe, or a record that starts at the firing itself */
             f->k_start = SEG_B_DEAD;
             f->t_start = zs < 0 ? 0 : zs;
