@@ -36,12 +36,22 @@
  * run too: a noise-free record (a bridge voltage with dead zones), whose
  * plateaus are levels, not a rail. A real trace is noisy off the rail. */
 #define TF_CLIP_MAX_NEIGHBOUR 16
+/* On quantised data a clipped crest must have been headed at least this many
+ * steps past the level (estimated from the slope over TF_CLIP_SLOPE_SPAN
+ * samples beside the run). A smooth crest within its top code gives at most
+ * (len + 4) / len steps, 2.3 for len >= 3; with noise it scatters a little. */
+#define TF_CLIP_MIN_OVERSHOOT 3.0
+#define TF_CLIP_SLOPE_SPAN 4
 
 /* Levels a range may span for the data to count as visibly quantised
  * (scopes store 8 to 16 bits). */
 #define TF_LSB_MAX_LEVELS 1048576.0
 #define TF_LSB_MIN_LEVELS 8.0
 #define TF_LSB_MAX_MULTIPLE 20.0
+/* loose pass: values printed with 5 significant digits near 1000 codes are
+ * off by up to 0.05, which is 1.7 % of a 10-bit step of 2.93 there; allow 5 %
+ * of the step (a random residual passes 1 time in 10, so noise still fails) */
+#define TF_LSB_LOOSE 0.05
 
 enum { BLOCK = 256 };
 
@@ -223,7 +233,7 @@ static double fgcd(double a, double b, double tol, double rel)
  * the smallest one q. strict: every difference must be a multiple of the
  * candidate within max(tol, rel * q) (exact data: PCM codes, float values).
  * loose: only differences of at most TF_LSB_MAX_MULTIPLE candidate steps
- * decide, within max(tol, rel * difference), since for printed values the
+ * decide, within max(tol, rel * difference, TF_LSB_LOOSE * q), since for printed values the
  * candidate's own error grows with the multiple; beyond that the tolerance
  * no longer tells a step from noise. Returns the step refined by least
  * squares, or 0. */
@@ -236,7 +246,7 @@ static double lsb_pass(const double *d, size_t m, double q, double tol, double r
             continue;
         used++;
         double kk = nearbyint(a / q);
-        if (fabs(a - kk * q) > fmax(tol, rel * (loose ? a : q)))
+        if (fabs(a - kk * q) > (loose ? fmax(tol, fmax(rel * a, TF_LSB_LOOSE * q)) : fmax(tol, rel * q)))
             q = fgcd(q, a, tol, rel);
         if (q < 16.0 * tol)
             return 0;
@@ -277,8 +287,20 @@ static double lsb_estimate(const double *d, size_t m, double lo, double hi)
     }
     if (nz < 16)
         return 0;
+    /* printed values: the smallest difference may be a step shortened by the
+     * printing; start the loose pass from the mean of the one-step ones */
+    double s1 = 0;
+    size_t n1 = 0;
+    for (size_t k = 0; k < m; k++) {
+        double a = fabs(d[k]);
+        if (a >= q0 && a < 1.5 * q0) {
+            s1 += a;
+            n1++;
+        }
+    }
+    double q1 = n1 ? s1 / (double)n1 : q0;
     for (int loose = 0; loose < 2; loose++) {
-        double q = lsb_pass(d, m, q0, tol, rel, loose);
+        double q = lsb_pass(d, m, loose ? q1 : q0, tol, rel, loose);
         double levels = q > 0 ? (hi - lo) / q : 0;
         if (q >= 16.0 * tol && levels <= TF_LSB_MAX_LEVELS && levels >= TF_LSB_MIN_LEVELS)
             return q;
@@ -317,7 +339,29 @@ TF_NOINLINE static int block_touches(const float *x, float lo, float hi)
  * neighbours, which must be short (TF_CLIP_MIN_RUN, TF_CLIP_RATIO,
  * TF_CLIP_MAX_NEIGHBOUR). Samples away from the
  * extremes are skipped 16 at a time with a branch-free test. */
-static void clipping(const float *x, size_t n, float lo, float hi, tf_channel_stats *out)
+/* How far the trace would have gone past the run's level had it not been
+ * held there: for a crest cut flat over len samples, the slope toward the
+ * level (over the TF_CLIP_SLOPE_SPAN samples each side) times len / 4
+ * (parabola). Returns -1 when neither side has enough samples. */
+static double overshoot(const float *x, size_t n, size_t k, size_t len)
+{
+    const size_t K = TF_CLIP_SLOPE_SPAN;
+    double slope = 0;
+    int sides = 0;
+    if (k >= K) {
+        slope += fabs((double)x[k] - (double)x[k - K]) / (double)K;
+        sides++;
+    }
+    size_t e = k + len - 1; /* last sample of the run */
+    if (e + K < n) {
+        slope += fabs((double)x[e] - (double)x[e + K]) / (double)K;
+        sides++;
+    }
+    return sides ? slope / sides * (double)len / 4.0 : -1.0;
+}
+
+static void clipping(const float *x, size_t n, float lo, float hi, double lsb,
+                     tf_channel_stats *out)
 {
     if (!(lo < hi))
         return; /* a constant channel is flat, not clipped */
@@ -335,7 +379,15 @@ static void clipping(const float *x, size_t n, float lo, float hi, tf_channel_st
         size_t before = k > 0 ? run_back(x, k - 1) : 0;
         size_t after = k + len < n ? run_fwd(x, n, k + len) : 0;
         size_t nb = before > after ? before : after;
-        if (len >= TF_CLIP_MIN_RUN && len >= TF_CLIP_RATIO * nb && nb <= TF_CLIP_MAX_NEIGHBOUR) {
+        int clipped = len >= TF_CLIP_MIN_RUN && len >= TF_CLIP_RATIO * nb &&
+                      nb <= TF_CLIP_MAX_NEIGHBOUR;
+        /* quantised data: a smooth crest can sit on its top code for a few
+         * samples; it was cut only if it would have gone well past it */
+        if (clipped && lsb > 0) {
+            double over = overshoot(x, n, k, len);
+            clipped = over < 0 || over >= TF_CLIP_MIN_OVERSHOOT * lsb;
+        }
+        if (clipped) {
             out->clipped_samples += len;
             out->clipped_runs++;
             if (x[k] == hi)
@@ -384,12 +436,14 @@ void tf_stats_compute(const float *x, size_t n, tf_channel_stats *out)
         return;
     }
     moments(x, n, out);
-    clipping(x, n, (float)out->min, (float)out->max, out);
-    if (n < 2)
+    if (n < 2) {
+        clipping(x, n, (float)out->min, (float)out->max, 0, out);
         return;
+    }
     double *d = diff_buffer(n, fallback, &cap);
     size_t m = sample_diffs(x, n, d, cap);
     out->lsb = lsb_estimate(d, m, out->min, out->max);
+    clipping(x, n, (float)out->min, (float)out->max, out->lsb, out);
     out->noise_sigma = mad_sigma(d, m);
     if (d != fallback)
         free(d);
