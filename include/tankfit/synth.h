@@ -93,7 +93,8 @@ typedef struct tf_synth_point {
 
 /* Evaluate at time t (seconds). t must not be earlier than about 1 ms before the
  * t0 of the last fill or the latest evaluated time (history is short); evaluation
- * moves the simulation forward as needed. Errors: TF_ERR_USAGE (t too early or not finite), TF_ERR_NOMEM. */
+ * moves the simulation forward as needed. Errors: TF_ERR_USAGE (t too early or not
+ * finite), TF_ERR_NOMEM. */
 tf_status tf_synth_eval(tf_synth *s, double t, tf_synth_point *p, tf_error *err);
 
 #ifdef __cplusplus
