@@ -186,6 +186,10 @@ static tf_status read_head(const tf_csv_source *src, head *h, tf_csv_layout *lay
         return tf_error_set(err, TF_ERR_IO, "%s: cannot read the file", src->path);
     h->len = (size_t)got;
     h->complete = h->len >= src->size;
+    if (h->len >= 2 && (memcmp(h->buf, "\xff\xfe", 2) == 0 || memcmp(h->buf, "\xfe\xff", 2) == 0))
+        return tf_error_set(err, TF_ERR_DATA,
+                            "%s:1:1: expected ASCII or UTF-8 text, found a UTF-16 byte-order "
+                            "mark (save the export as UTF-8)", src->path);
     if (h->len >= 3 && memcmp(h->buf, "\xef\xbb\xbf", 3) == 0) {
         h->bom = 3;
         lay->has_bom = 1;

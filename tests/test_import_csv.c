@@ -365,6 +365,13 @@ static void test_import_csv_bad_corpus(void **state)
         snprintf(rel, sizeof rel, "tests/bad/%s", cases[i].file);
         expect_error(tf_test_src(rel), NULL, cases[i].code, cases[i].fragment);
     }
+    /* UTF-16 (some exports): a clear message instead of "no numbers" */
+    const char *u16 = tf_test_tmpfile("utf16.csv");
+    FILE *f = fopen(u16, "wb");
+    assert_non_null(f);
+    fwrite("\xff\xfet\0,\0v\0\n\0", 1, 10, f);
+    fclose(f);
+    expect_error(u16, NULL, TF_ERR_DATA, "utf16.csv:1:1: expected ASCII or UTF-8 text");
     expect_error(tf_test_src("tests/bad/no-such-file.csv"), NULL, TF_ERR_NOINPUT,
                  "no-such-file.csv: cannot open");
     expect_error(tf_test_src("tests/bad"), NULL, TF_ERR_NOINPUT, "cannot open");
