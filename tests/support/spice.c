@@ -164,12 +164,13 @@ int tf_spice_write_netlist(const tf_design *d, const tf_spice_options *o, const 
     case TF_TOPO_RING_DOWN:
         /* p is the capacitor's top; the coil returns to its bottom (0) */
         thyristor_pair(f, "1", "p", "x", "g1", vt, vd);
-        gate_source(f, d, 0, "g1", t_stop, o->gate_width_s);
+        /* the simulator holds T1's gate from the release on: free ringing */
+        gate_source(f, d, 0, "g1", t_stop, 2 * t_stop);
         /* the simulator's v_c runs along the loop x - L - R - C: v(0) - v(p) = -precharge */
         fprintf(f, "C1 p 0 %.12g\nL1 x a %.12g\nR1 a 0 %.12g\n.ic v(p)=%.12g\n", C, L,
                 R > 0 ? R : 1e-9, -vc0);
-        cap_hi = "0";
-        cap_lo = "p";
+        cap_hi = "p"; /* v(p), negated by the reader: ngspice has no vector "0" */
+        cap_lo = NULL;
         break;
     default:
         return spice_fail(msg, msg_size, "spice: topology %s is not modelled",
@@ -188,7 +189,10 @@ int tf_spice_write_netlist(const tf_design *d, const tf_spice_options *o, const 
      * near-ideal diodes on floating bridge nodes) */
     fprintf(f, "tran %.12g %.12g 0 %.12g\n", step, t_stop, maxstep);
     fprintf(f, "linearize\n");
-    fprintf(f, "wrdata %s i(L1) v(x,%s) v(%s,%s) v(p,x)\n", data_path, yref, cap_hi, cap_lo);
+    if (cap_lo)
+        fprintf(f, "wrdata %s i(L1) v(x,%s) v(%s,%s) v(p,x)\n", data_path, yref, cap_hi, cap_lo);
+    else
+        fprintf(f, "wrdata %s i(L1) v(x,%s) v(%s) v(p,x)\n", data_path, yref, cap_hi);
     fprintf(f, "quit\n.endc\n.end\n");
     return 0;
 }
@@ -196,7 +200,7 @@ int tf_spice_write_netlist(const tf_design *d, const tf_spice_options *o, const 
 int tf_spice_available(void) { return tf_test_have("ngspice"); }
 
 /* Read wrdata output: a header line, then rows "time v1 v2 v3 v4". */
-static int read_data(const char *path, double t_from, double step,
+static int read_data(const char *path, double t_from, double step, int negate_vc,
                      tf_capture **out, char *msg, size_t msg_size)
 {
     FILE *f = fopen(path, "r");
@@ -245,7 +249,7 @@ static int read_data(const char *path, double t_from, double step,
         snprintf(cap->ch[c].name, sizeof cap->ch[c].name, "%s", names[c]);
         snprintf(cap->ch[c].unit, sizeof cap->ch[c].unit, "%s", c == 0 ? "A" : "V");
         for (size_t k = 0; k < rows; k++) {
-            cap->ch[c].samples[k] = (float)buf[k * 5 + 1 + c];
+            cap->ch[c].samples[k] = (float)((negate_vc && c == 2 ? -1 : 1) * buf[k * 5 + 1 + c]);
         }
     }
     cap->t0_s = buf[0];
@@ -300,7 +304,8 @@ int tf_spice_run(const tf_design *d, const tf_spice_options *opts, tf_capture **
     int st = tf_test_system("ngspice -b '%s' > '%s' 2>&1", cir, log);
     if (st != 0)
         return spice_fail(msg, msg_size, "spice: ngspice exited with %d (see %s)", st, log);
-    return read_data(data, start, o.t_step_s, out, msg, msg_size);
+    return read_data(data, start, o.t_step_s, d->topology == TF_TOPO_RING_DOWN, out, msg,
+                     msg_size);
 }
 
 size_t tf_spice_crossings(const float *x, size_t n, double t0, double dt, double level,
