@@ -29,7 +29,10 @@
  *
  * Initial state and firings follow the simulator's conventions (docs/simulator.md):
  * at rest before the first firing, with the capacitor voltage opts->vc0_v, gate pulses
- * of opts->gate_width_s at the design's firing instants.
+ * of opts->gate_width_s at the design's firing instants (ring-down: the gate is held
+ * from the release on). The transient starts from the operating point with every
+ * device blocking and the capacitor held by .ic (no uic), rshunt = 100 Mohm on every
+ * node. Typical agreement with the simulator: docs/synth-output.md.
  */
 #ifndef TF_TEST_SPICE_H
 #define TF_TEST_SPICE_H
