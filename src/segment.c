@@ -109,6 +109,14 @@ static tf_status gate_firings(const tf_capture *cap, const tf_roles *roles, seg_
         if (c->skew_known || ci->skew_known)
             shift = (c->skew_s - ci->skew_s) / cap->dt_s;
         size_t before = fire->n;
+        if (y[0] >= thr) {
+            /* high from the first sample: fired at (or before) the record's start */
+            double *f = seg_vec_push(fire);
+            if (!f)
+                return TF_ERR_NOMEM;
+            f[0] = -shift;
+            f[1] = g;
+        }
         for (size_t k = 1; k < cap->n; k++) {
             if (!(y[k - 1] < thr && y[k] >= thr))
                 continue;

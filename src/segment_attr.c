@@ -2,6 +2,7 @@
 #include "segment_internal.h"
 
 #include <math.h>
+#include <stdarg.h>
 #include <stdint.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -285,9 +286,11 @@ static void lobe_stats(const seg_input *in, tf_lobe *L, double t0, double t1)
 /* ---- anomalies ------------------------------------------------------------------ */
 
 static tf_status add_anomaly(seg_vec *an, double time_s, const char *kind, const char *fmt, ...)
-    __attribute__((format(printf, 4, 5)));
+#if defined(__GNUC__)
+    __attribute__((format(printf, 4, 5)))
+#endif
+    ;
 
-#include <stdarg.h>
 static tf_status add_anomaly(seg_vec *an, double time_s, const char *kind, const char *fmt, ...)
 {
     tf_anomaly *a = seg_vec_push(an);
@@ -467,10 +470,47 @@ static void stat3(double *v, size_t n, tf_stat3 *s)
     s->median = gsl_stats_median_from_sorted_data(v, 1, m);
 }
 
+/* From index z (a thyristor's current zero) to where the switch voltage v first turns
+ * positive before index lim: the last upward zero crossing before it clearly exceeds
+ * the noise (h), interpolated. NAN when it stays negative or never was. */
+static double reverse_until(const float *v, double z, size_t lim, double h)
+{
+    size_t k = (size_t)ceil(z);
+    while (k < lim && v[k] > h)
+        k++; /* the thyristor's own on-state drop may still show at the zero */
+    size_t start = k;
+    while (k < lim && v[k] <= h)
+        k++;
+    if (k >= lim || k == start)
+        return NAN;
+    size_t j2 = k;
+    while (j2 > start && v[j2 - 1] > 0)
+        j2--;
+    if (j2 == start)
+        return (double)j2;
+    /* a quantised voltage may sit at the zero code for a while: interpolate between the
+     * last negative and the first positive sample */
+    size_t j1 = j2 - 1;
+    while (j1 > start && v[j1] == 0)
+        j1--;
+    double a = v[j1], b = v[j2];
+    if (!(a < 0))
+        return 0.5 * ((double)j1 + (double)j2);
+    return (double)j1 + (0 - a) / (b - a) * (double)(j2 - j1);
+}
+
 static tf_status build_cycles(const seg_input *in, tf_lobe *L, const lobe_rec *rec, size_t nl,
                               double wsplit, int ring, seg_vec *cyc)
 {
     const double dt = in->cap->dt_s;
+    const float *vsw = in->roles->switch_voltage >= 0
+                           ? in->cap->ch[in->roles->switch_voltage].samples : NULL;
+    double hsw = 0;
+    if (vsw) {
+        /* forward means clearly above zero: a few noise sigmas or one code step */
+        double sig = seg_noise_sigma(vsw, in->n), q = seg_lsb(vsw, in->n);
+        hsw = fmax(3 * (isfinite(sig) ? sig : 0), 1.5 * q);
+    }
     for (size_t j = 0; j < nl; j++) {
         if (!tf_device_is_thyristor(L[j].device) || rec[j].k0 == SEG_B_EDGE ||
             rec[j].k1 == SEG_B_EDGE)
@@ -487,6 +527,7 @@ static tf_status build_cycles(const seg_input *in, tf_lobe *L, const lobe_rec *r
         c->diode_s = c->turnoff_available_s = c->dead_s = c->overlap_s = NAN;
         c->period_s = c->frequency_hz = NAN;
         c->firing_voltage_s = NAN;
+        c->reverse_bias_s = NAN;
         if (j + 1 < nl && L[j + 1].device == diode_of(L[j].device) && rec[j + 1].k1 != SEG_B_EDGE) {
             const tf_lobe *d = &L[j + 1];
             c->lobe_diode = j + 1;
@@ -503,6 +544,13 @@ static tf_status build_cycles(const seg_input *in, tf_lobe *L, const lobe_rec *r
                 c->dead_s = 0;
             } else if (j + 2 < nl) {
                 c->dead_s = fmax(0, L[j + 2].start_s - d->end_s);
+            }
+            if (vsw && (L[j].device == TF_DEV_T1 || L[j].device == TF_DEV_T1T2)) {
+                /* the switch voltage is T1's: look up to a little past the diode's end */
+                size_t lim = (size_t)ceil(rec[j + 1].t1) + 8;
+                double tr = reverse_until(vsw, rec[j].t1, lim < in->n ? lim : in->n, hsw);
+                if (isfinite(tr))
+                    c->reverse_bias_s = (tr - rec[j].t1) * dt;
             }
         }
         for (size_t q = j + 1; q < nl; q++)
@@ -720,7 +768,8 @@ tf_status seg_attribute(const seg_input *in, seg_vec *runs, tf_topology topo,
                 {&r->turnoff_available_s, offsetof(tf_cycle, turnoff_available_s)},
                 {&r->thyristor_s, offsetof(tf_cycle, thyristor_s)},
                 {&r->dead_s, offsetof(tf_cycle, dead_s)},
-                {&r->overlap_s, offsetof(tf_cycle, overlap_s)}};
+                {&r->overlap_s, offsetof(tf_cycle, overlap_s)},
+                {&r->reverse_bias_s, offsetof(tf_cycle, reverse_bias_s)}};
             for (size_t q = 0; q < sizeof f / sizeof f[0]; q++) {
                 for (size_t i = 0; i < r->ncycles; i++)
                     v[i] = *(const double *)((const char *)&r->cycles[i] + f[q].off);

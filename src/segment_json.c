@@ -47,12 +47,13 @@ json_t *tf_segment_to_json(const tf_segment_result *r)
     for (size_t j = 0; j < r->ncycles; j++) {
         const tf_cycle *c = &r->cycles[j];
         json_array_append_new(cycles, json_pack(
-            "{s:s,s:o,s:o,s:o,s:o,s:o,s:o,s:o,s:o,s:o}", "thyristor",
+            "{s:s,s:o,s:o,s:o,s:o,s:o,s:o,s:o,s:o,s:o,s:o}", "thyristor",
             tf_device_name(c->thyristor), "start_s", num(c->start_s), "period_s",
             num(c->period_s), "frequency_hz", num(c->frequency_hz), "thyristor_s",
             num(c->thyristor_s), "diode_s", num(c->diode_s), "turnoff_available_s",
             num(c->turnoff_available_s), "dead_s", num(c->dead_s), "overlap_s",
-            num(c->overlap_s), "firing_voltage_s", num(c->firing_voltage_s)));
+            num(c->overlap_s), "firing_voltage_s", num(c->firing_voltage_s), "reverse_bias_s",
+            num(c->reverse_bias_s)));
     }
     for (size_t j = 0; j < r->nanomalies; j++)
         json_array_append_new(an, json_pack("{s:o,s:s,s:s}", "time_s",
@@ -64,10 +65,11 @@ json_t *tf_segment_to_json(const tf_segment_result *r)
     json_object_set_new(o, "bursts", bursts);
     json_object_set_new(o, "cycles", cycles);
     json_object_set_new(o, "timing", json_pack(
-        "{s:o,s:o,s:o,s:o,s:o,s:o}", "output_frequency_hz", stat3_json(&r->output_frequency_hz),
+        "{s:o,s:o,s:o,s:o,s:o,s:o,s:o}", "output_frequency_hz", stat3_json(&r->output_frequency_hz),
         "thyristor_s", stat3_json(&r->thyristor_s), "diode_s", stat3_json(&r->diode_s),
         "turnoff_available_s", stat3_json(&r->turnoff_available_s), "dead_s",
-        stat3_json(&r->dead_s), "overlap_s", stat3_json(&r->overlap_s)));
+        stat3_json(&r->dead_s), "overlap_s", stat3_json(&r->overlap_s), "reverse_bias_s",
+        stat3_json(&r->reverse_bias_s)));
     json_object_set_new(o, "anomalies", an);
     json_object_set_new(o, "firings_s", fire);
     json_object_set_new(o, "clipped_stretches", json_integer((json_int_t)r->clipped_stretches));

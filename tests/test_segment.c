@@ -728,6 +728,46 @@ static void test_segment_sim_commutation_failure(void **state)
     sim_free(&c);
 }
 
+/* With a stray inductance in the thyristor-diode loop the switch voltage turns positive
+ * before the diode stops (DOMAIN.md section 3): the reverse-bias time from the switch
+ * voltage must match the simulator's and be shorter than the turn-off time available. */
+static void test_segment_sim_switch_voltage_reverse_bias(void **state)
+{
+    (void)state;
+    sim_case c = {0};
+    sim_run(&c, sim_design("half-bridge", "6 kHz", "20 us", "", ""), 0);
+    sim_free(&c);
+    char text[4096];
+    snprintf(text, sizeof text, "%s", sim_design("half-bridge", "6 kHz", "20 us", "", ""));
+    char *sw = strstr(text, "diode_drop = 1.1 V\n");
+    assert_non_null(sw);
+    memmove(sw + 19 + 26, sw + 19, strlen(sw + 19) + 1);
+    memcpy(sw + 19, "stray_inductance = 300 nH\n", 26);
+    strcat(text, "v_ak1.bits = 14\n");
+    sim_run(&c, text, 0);
+    size_t n = 0, idx;
+    json_t *v;
+    json_array_foreach(json_object_get(c.truth, "turnoff"), idx, v) {
+        json_t *tr = json_object_get(v, "t_reverse_s");
+        double ts = json_real_value(json_object_get(v, "start_s"));
+        if (!json_is_number(tr) || ts < 2e-6)
+            continue;
+        for (size_t k = 0; k < c.r->ncycles; k++) {
+            const tf_cycle *cy = &c.r->cycles[k];
+            if (fabs(cy->start_s - ts) > 2 * c.cap->dt_s || !isfinite(cy->reverse_bias_s))
+                continue;
+            double want = json_number_value(tr);
+            /* source: the simulator's switch-voltage truth; tolerance of issue 4 */
+            assert_true(fabs(cy->reverse_bias_s - want) <= c.cap->dt_s + 0.005 * want);
+            assert_true(cy->reverse_bias_s < 0.9 * cy->turnoff_available_s);
+            n++;
+        }
+    }
+    assert_true(n >= 5);
+    assert_true(c.r->reverse_bias_s.count >= 5);
+    sim_free(&c);
+}
+
 /* ngspice simulates the same half-bridge from its netlist (an independent circuit
  * simulator): the lobes the segmenter finds on its capture must sit on ngspice's own
  * current zeros, and the turn-off time available must match them. */
@@ -842,6 +882,7 @@ int main(void)
         cmocka_unit_test(test_segment_sim_single_switch),
         cmocka_unit_test(test_segment_sim_ring_down),
         cmocka_unit_test(test_segment_sim_commutation_failure),
+        cmocka_unit_test(test_segment_sim_switch_voltage_reverse_bias),
         cmocka_unit_test(test_segment_ngspice_reference),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);

@@ -57,6 +57,11 @@ typedef struct tf_cycle {
     size_t lobe_thyristor, lobe_diode; /* indices into lobes; lobe_diode = (size_t)-1 if none */
     double firing_voltage_s;    /* overlapping: the output-voltage step found near the
                                    split (NAN when no voltage channel or not found) */
+    double reverse_bias_s;      /* T1 (or T1+T2) with a switch-voltage channel: from the
+                                   thyristor's current zero until its anode-cathode voltage
+                                   first turns positive (NAN otherwise); shorter than
+                                   turnoff_available_s when a stray loop inductance lifts
+                                   the voltage during the diode interval */
 } tf_cycle;
 
 typedef struct tf_anomaly {
@@ -84,6 +89,7 @@ typedef struct tf_segment_result {
     double *firings_s;      size_t nfirings;    /* firing instants (gates or inferred) */
     tf_stat3 output_frequency_hz, diode_s, turnoff_available_s;
     tf_stat3 thyristor_s, dead_s, overlap_s;
+    tf_stat3 reverse_bias_s;      /* over the cycles that have it */
     char topology_evidence[256];  /* how the topology was chosen */
     double damped_frequency_hz;   /* rough fd from the lobes (pi / lobe duration, or the
                                      overlapping split model); NAN when unknown */

@@ -208,20 +208,44 @@ static void print_turnoff(FILE *out, const tf_segment_result *s, const tf_design
     } else {
         fputs("  t_q not known: give a design file with [switch] turnoff_time\n", out);
     }
+    if (!s->reverse_bias_s.count)
+        return;
+    /* the switch voltage shows how long T1 really stays reverse-biased: a stray
+     * inductance in the thyristor-diode loop can lift it above zero early */
+    size_t rb = (size_t)-1;
+    for (size_t k = 0; k < s->ncycles; k++)
+        if (isfinite(s->cycles[k].reverse_bias_s) &&
+            (rb == (size_t)-1 || s->cycles[k].reverse_bias_s < s->cycles[rb].reverse_bias_s))
+            rb = k;
+    const tf_cycle *cr = &s->cycles[rb];
+    fprintf(out, "  switch voltage: %s reverse-biased for at least %s (fired at %s), %.0f %% of "
+            "its turn-off time available%s\n", tf_device_name(cr->thyristor),
+            si(a, cr->reverse_bias_s, "s"), si(b, cr->start_s, "s"),
+            100.0 * cr->reverse_bias_s / cr->turnoff_available_s,
+            cr->reverse_bias_s < 0.98 * cr->turnoff_available_s
+                ? ": forward-biased before its diode stops (loop inductance)" : "");
+    if (d && isfinite(d->turnoff_time_s) && d->turnoff_time_s > 0)
+        fprintf(out, "  against t_q %s: ratio %.3f\n", si(c, d->turnoff_time_s, "s"),
+                cr->reverse_bias_s / d->turnoff_time_s);
 }
 
 static void print_cycles(FILE *out, const tf_segment_result *s)
 {
     char b[8][32];
-    fprintf(out, "\nCycles (%zu):\n  %-6s %12s %12s %12s %12s %12s %12s %12s\n", s->ncycles,
-            "device", "fired", "frequency", "thyristor", "diode", "turn-off", "dead", "overlap");
+    int rb = s->reverse_bias_s.count > 0;
+    fprintf(out, "\nCycles (%zu):\n  %-6s %12s %12s %12s %12s %12s %12s %12s%s\n", s->ncycles,
+            "device", "fired", "frequency", "thyristor", "diode", "turn-off", "dead", "overlap",
+            rb ? "      reverse" : "");
     for (size_t k = 0; k < s->ncycles; k++) {
         const tf_cycle *c = &s->cycles[k];
-        fprintf(out, "  %-6s %12s %12s %12s %12s %12s %12s %12s\n", tf_device_name(c->thyristor),
+        fprintf(out, "  %-6s %12s %12s %12s %12s %12s %12s %12s", tf_device_name(c->thyristor),
                 si(b[0], c->start_s, "s"), si(b[1], c->frequency_hz, "Hz"),
                 si(b[2], c->thyristor_s, "s"), si(b[3], c->diode_s, "s"),
                 si(b[4], c->turnoff_available_s, "s"), si(b[5], c->dead_s, "s"),
                 si(b[6], c->overlap_s, "s"));
+        if (rb)
+            fprintf(out, " %12s", si(b[7], c->reverse_bias_s, "s"));
+        fputc('\n', out);
     }
 }
 
@@ -245,6 +269,8 @@ static void print_summary(FILE *out, const tf_capture *cap, const tf_analysis *a
     print_stat(out, "turn-off available", &s->turnoff_available_s, "s");
     print_stat(out, "dead time", &s->dead_s, "s");
     print_stat(out, "overlap", &s->overlap_s, "s");
+    if (s->reverse_bias_s.count)
+        print_stat(out, "T1 reverse bias", &s->reverse_bias_s, "s");
     print_turnoff(out, s, d);
     if (!s->nanomalies)
         fputs("Anomalies: none\n", out);
