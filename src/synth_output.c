@@ -150,6 +150,9 @@ tf_status tf_synth_write_opts(const tf_design *d, const char *out_path, const ch
     if (!opt)
         opt = &defaults;
     tf_error_clear(err);
+    if (!d || !out_path)
+        return tf_error_set(err, TF_ERR_USAGE, "tf_synth_write: a design and an output path "
+                            "are required");
     int known, wav = tf_sw_ext_format(out_path, &known);
     if (opt->format)
         wav = opt->format == 2;
@@ -199,10 +202,14 @@ tf_status tf_synth_to_capture(const tf_design *d, int noiseless, tf_capture **ou
     tf_error local;
     if (!err)
         err = &local;
+    if (!out)
+        return tf_error_set(err, TF_ERR_USAGE, "tf_synth_to_capture: out is required");
     *out = NULL;
     if (truth)
         *truth = NULL;
     tf_error_clear(err);
+    if (!d)
+        return tf_error_set(err, TF_ERR_USAGE, "tf_synth_to_capture: a design is required");
     tf_sw_plan plan;
     tf_status st = tf_sw_plan_make(d, noiseless, 0, &plan, err);
     if (st != TF_OK)
