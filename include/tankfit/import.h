@@ -55,9 +55,18 @@ tf_status tf_import_options_add(tf_import_options *o, tf_opt_kind kind, const ch
 tf_status tf_import_csv(const char *path, const tf_import_options *opt, tf_capture **out,
                         tf_error *err);
 
-/* Read any file libsndfile can read (WAV, RF64, W64, FLAC, AIFF, ...). A sidecar
- * "<path>.tfscale" (format: docs/formats.md) supplies names, units, full-scale
- * values and skews; options override it. */
+/* Read any file libsndfile can read (WAV, RF64, W64, FLAC, AIFF, ...) into a new
+ * capture: channel k is "chK" unless named; samples are libsndfile's normalised
+ * floats times the channel's full scale. The sidecar "<path>.tfscale" (format:
+ * docs/import-wav.md) gives names, units, full scales, skews and t0;
+ * opt->full_scale (by sidecar name or "chK") overrides it; without either a
+ * channel stays in unit "FS" with a warning. opt->channels keeps only the named
+ * channels; opt->sample_rate_hz / dt_s replace the file's rate; then
+ * tf_import_apply_options. opt may be NULL. Errors: TF_ERR_NOINPUT (cannot
+ * open; sidecar unreadable), TF_ERR_DATA (rejected by libsndfile, truncated, no
+ * frames, non-finite sample without gaps_interpolate, sidecar
+ * "path:line:column: expected ..."), TF_ERR_USAGE (option naming no channel),
+ * TF_ERR_NOMEM. On failure *out is NULL; else the caller owns *out. */
 tf_status tf_import_wav(const char *path, const tf_import_options *opt, tf_capture **out,
                         tf_error *err);
 

@@ -98,7 +98,8 @@ void tf_cli_import_options_help(FILE *out)
           "  --rename OLD=NEW        rename a channel\n"
           "  --channels A,B          load only these channels\n"
           "  --full-scale NAME=VALUE WAV: physical value of full scale (e.g. ch2=200A)\n"
-          "  --sample-rate HZ        sample rate when the CSV has no time column\n"
+          "  --sample-rate HZ        sample rate when the CSV has no time column;\n"
+          "                          replaces a WAV's rate\n"
           "  --dt S                  sample period, the same as 1/--sample-rate\n"
           "  --gaps error|interpolate  empty or non-finite values (default error)\n",
           out);
