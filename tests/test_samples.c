@@ -130,24 +130,40 @@ static void test_samples_scenarios(void **state)
     assert_string_equal(json_string_value(json_object_get(cap, "wav_subformat")), "PCM_16");
     json_decref(fb);
 
-    /* heating: the T1 lobes lengthen by more than 2 % across the run (L and R change) */
+    /* heating: R rises, then drops by more than a third within 0.5 ms (the magnetic
+     * transition), and the T1 lobes lengthen by more than 2 % as L grows */
     json_t *heat = truth_of("ih-hb-2207-heating");
     size_t i;
     json_t *x;
-    double first = 0, last = 0;
+    double first = 0, last = 0, r_first = 0, r_max = 0, r_last = 0;
     json_array_foreach(json_object_get(heat, "intervals"), i, x)
     {
         if (strcmp(json_string_value(json_object_get(x, "device")), "T1") != 0)
             continue;
         double len = json_real_value(json_object_get(x, "end_s")) -
                      json_real_value(json_object_get(x, "start_s"));
-        if (first == 0)
+        double r = json_real_value(json_object_get(x, "resistance_ohm"));
+        if (first == 0) {
             first = len;
+            r_first = r;
+        }
         if (isfinite(len) && len > 0)
             last = len;
+        r_max = fmax(r_max, r);
+        r_last = r;
     }
     assert_true(first > 0 && last / first > 1.02);
+    assert_true(r_max > 1.2 * r_first && r_last < 0.66 * r_max);
     json_decref(heat);
+
+    /* reference: sox reads the full-bridge WAV as 8 channels of 16-bit PCM at 5 MHz */
+    char cmd_path[1024];
+    snprintf(cmd_path, sizeof cmd_path, "%s", tf_test_src("samples/ih-fb-0931-fullbridge.wav"));
+    assert_int_equal(tf_test_system("sox --i '%s' | grep -q 'Channels *: 8' && "
+                                    "sox --i '%s' | grep -q '16-bit Signed Integer PCM' && "
+                                    "sox --i '%s' | grep -q 'Sample Rate *: 5e+06'",
+                                    cmd_path, cmd_path, cmd_path),
+                     0);
 }
 
 int main(void)
