@@ -509,6 +509,34 @@ static json_t *build_json(tf_synth *r, const tf_synth_accum *A)
     return o;
 }
 
+/* Listed firing instants that are evenly spaced (to 1e-9 of the spacing) define a firing
+ * period too: whole periods from the first T1 firing in the window. */
+static void listed_periods(const tf_synth *r, tf_synth_accum *A)
+{
+    const tf_design *d = &r->d;
+    size_t n = d->n_firing_times;
+    if (n < 2)
+        return;
+    double sp = (d->firing_times_s[n - 1] - d->firing_times_s[0]) / (double)(n - 1);
+    for (size_t k = 1; k < n; k++)
+        if (fabs(d->firing_times_s[k] - d->firing_times_s[k - 1] - sp) > 1e-9 * sp)
+            return;
+    A->period = sp * (double)r->npos;
+    size_t k = 0;
+    while (k < n && d->firing_times_s[k] < A->ws - 1e-9 * sp)
+        k += (size_t)r->npos;
+    if (k >= n)
+        return;
+    A->ps = d->firing_times_s[k];
+    /* only periods whose firings were all listed */
+    double last = d->firing_times_s[n - 1] + sp;
+    double end = fmin(A->we, last);
+    A->nper = (long)floor((end - A->ps) / A->period + 1e-9);
+    if (A->nper < 0)
+        A->nper = 0;
+    A->pe = A->ps + (double)A->nper * A->period;
+}
+
 json_t *tf_synth_truth(tf_synth *s, tf_error *err) { return tf__truth(s, 0, err); }
 
 json_t *tf__truth(tf_synth *s, int force_quadrature, tf_error *err)
@@ -553,6 +581,9 @@ json_t *tf__truth(tf_synth *s, int force_quadrature, tf_error *err)
         A->ps = first;
         A->pe = first + (double)A->nper * A->period;
         A->w_harm = w0 + NHARM * 2 * M_PI * r->f;
+    } else if (r->topo != TF_TOPO_RING_DOWN) {
+        listed_periods(r, A);
+        A->w_harm = w0 + NHARM * 2 * M_PI / A->period;
     }
     A->force_quadrature = force_quadrature;
     r->acc = A;

@@ -835,6 +835,40 @@ static void test_synth_explicit_firings_and_schedule(void **state)
     assert_true(tf_test_reldiff(iv[6].l_h, L2) < 1e-12);
     assert_true(tf_test_reldiff(iv[6].r_ohm, R) < 1e-12);
     tf_synth_destroy(s);
+    /* unevenly listed instants have no firing period: no harmonics */
+    s = make(d);
+    json_t *j = truth(s);
+    assert_true(json_is_null(json_object_get(j, "harmonics")));
+    json_decref(j);
+    tf_synth_destroy(s);
+    /* evenly listed instants give the same truth as the firing frequency they make */
+    d->nschedule = 0;
+    d->n_firing_times = 20;
+    for (size_t k = 0; k < 20; k++)
+        d->firing_times_s[k] = (double)k * 125e-6;
+    s = make(d);
+    json_t *a = truth(s);
+    tf_synth_destroy(s);
+    d->n_firing_times = 0;
+    d->firing_frequency_hz = 4000;
+    s = make(d);
+    json_t *b = truth(s);
+    json_t *pa = json_object_get(a, "power"), *pb = json_object_get(b, "power");
+    assert_int_equal(json_integer_value(json_object_get(pa, "periods")), 4);
+    assert_int_equal(json_integer_value(json_object_get(pb, "periods")), 4);
+    assert_true(tf_test_reldiff(json_real_value(json_object_get(pa, "mean_w")),
+                                json_real_value(json_object_get(pb, "mean_w"))) < 1e-12);
+    json_t *ha = json_object_get(json_object_get(a, "harmonics"), "i_load");
+    json_t *hb = json_object_get(json_object_get(b, "harmonics"), "i_load");
+    assert_true(tf_test_reldiff(json_real_value(json_array_get(json_object_get(ha, "amplitude"), 0)),
+                                json_real_value(json_array_get(json_object_get(hb, "amplitude"), 0))) <
+                1e-12);
+    assert_true(tf_test_reldiff(
+                    json_real_value(json_object_get(json_object_get(a, "harmonics"), "fundamental_hz")),
+                    4000) < 1e-12);
+    json_decref(a);
+    json_decref(b);
+    tf_synth_destroy(s);
     free(d);
 }
 
