@@ -87,6 +87,48 @@ static int replay_args(const char *path, const json_t *rec, const char **argv, i
     return 0;
 }
 
+/* Hash every input the record names; a missing one is EXIT_NOINPUT. Differences
+ * go to diffs. */
+static int rehash(const json_t *rec, json_t *diffs)
+{
+    const json_t *d = json_object_get(rec, "design");
+    const json_t *caps = json_object_get(rec, "captures");
+    size_t n = 1 + json_array_size(caps);
+    for (size_t k = 0; k < n; k++) {
+        const json_t *o = k == 0 ? d : json_array_get(caps, k - 1);
+        const char *path = json_string_value(json_object_get(o, "path"));
+        const char *want = json_string_value(json_object_get(o, "sha256"));
+        char hex[65];
+        tf_error err;
+        if (!path || !want) {
+            fprintf(stderr, "tankfit: the record lacks a path or sha256 of %s\n",
+                    k ? "a capture" : "the design");
+            return EXIT_DATAERR;
+        }
+        if (tf_record_sha256_file(path, hex, NULL, &err) != TF_OK)
+            return tf_cli_fail(&err);
+        if (strcmp(hex, want) != 0) {
+            char line[4400];
+            snprintf(line, sizeof line, "%s %s changed: sha256 recorded %s, now %s",
+                     k ? "capture" : "design", path, want, hex);
+            json_array_append_new(diffs, json_string(line));
+        }
+    }
+    return 0;
+}
+
+static int report(const char *path, json_t *diffs, const char *extra)
+{
+    size_t n = json_array_size(diffs) + (extra != NULL);
+    printf("%s: NOT reproduced, %zu difference%s:\n", path, n, n == 1 ? "" : "s");
+    size_t k;
+    json_t *d;
+    json_array_foreach(diffs, k, d) printf("  %s\n", json_string_value(d));
+    if (extra)
+        printf("  %s\n", extra);
+    return fflush(stdout) == 0 ? 1 : EXIT_IOERR;
+}
+
 static int run(int argc, char **argv)
 {
     if (argc != 2 || (argv[1][0] == '-' && argv[1][1]))
@@ -109,9 +151,19 @@ static int run(int argc, char **argv)
         rc = tf_check_args_parse(ac, (char **)av, &a, "verify");
     tf_check_run r;
     memset(&r, 0, sizeof r);
+    json_t *changed = json_array();
     if (!rc)
-        rc = tf_check_run_execute(&a, time(NULL), &r);
+        rc = rehash(rec, changed);
     if (!rc) {
+        rc = tf_check_run_execute(&a, time(NULL), &r);
+        /* a changed input that no longer analyses is a difference, not an error */
+        if (rc && json_array_size(changed))
+            rc = report(argv[1], changed, "the analysis could not be repeated on the changed "
+                        "input (see the message above)");
+        else if (!rc)
+            rc = -1;
+    }
+    if (rc == -1) {
         json_t *diffs = json_array();
         size_t n = tf_record_diff(rec, r.record, diffs);
         const char *tv = json_string_value(json_object_get(json_object_get(rec, "tool"), "version"));
@@ -133,6 +185,7 @@ static int run(int argc, char **argv)
         if (fflush(stdout) != 0)
             rc = EXIT_IOERR;
     }
+    json_decref(changed);
     tf_check_run_free(&r);
     tf_check_args_free(&a);
     json_decref(rec);
