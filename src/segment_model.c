@@ -2,6 +2,7 @@
 #include "segment_internal.h"
 
 #include <math.h>
+#include <stdlib.h>
 #include <string.h>
 
 #include <gsl/gsl_linalg.h>
@@ -344,9 +345,63 @@ static int chain_step(const float *x, size_t k0, size_t k1, size_t stride,
             first = (double)k0 + ceil((first - (double)k0) / st) * st;
         if (first > hi || first > (double)k1)
             continue;
-        double tau = first - ts, e = exp(-a * tau), co = cos(w * tau), si = sin(w * tau);
         const double A = amp[p], aw = a, ww = w;
         double gg = 0, gr = 0, g0 = 0, g1 = 0, g2 = 0;
+        size_t kf = (size_t)first, kl = (size_t)fmin(floor(hi), (double)k1);
+        while (ci < nclips && clips[ci].i1 < kf)
+            ci++;
+        int clean = !(ci < nclips && clips[ci].i0 <= kl) && !linear_only && stride == 1;
+        if (clean) {
+            /* four interleaved streams (rotation by 4w): the recurrences no longer wait on
+             * each other, and the lane sums can go to vector registers */
+            enum { LN = 4 };
+            double e4[LN], c4[LN], s4[LN], t4[LN];
+            double sgg[LN] = {0}, sgr[LN] = {0}, sg0[LN] = {0}, sg1[LN] = {0}, sg2[LN] = {0};
+            double s00[LN] = {0}, s01[LN] = {0}, s02[LN] = {0}, s11[LN] = {0}, s12[LN] = {0};
+            double s22[LN] = {0}, sr0[LN] = {0}, sr1[LN] = {0}, sr2[LN] = {0};
+            for (int l = 0; l < LN; l++) {
+                t4[l] = (double)(kf + (size_t)l) - ts;
+                e4[l] = exp(-a * t4[l]);
+                c4[l] = cos(w * t4[l]);
+                s4[l] = sin(w * t4[l]);
+            }
+            const double de4 = exp(-a * LN), dc4 = cos(w * LN), ds4 = sin(w * LN);
+            size_t k = kf;
+            for (; k + LN - 1 <= kl; k += LN) {
+                for (int l = 0; l < LN; l++) {
+                    double g = e4[l] * s4[l], v = x[k + (size_t)l], r = v - A * g;
+                    double jw = A * e4[l] * t4[l] * c4[l], ja = -A * t4[l] * g,
+                           jt = A * e4[l] * (aw * s4[l] - ww * c4[l]);
+                    sgg[l] += g * g;
+                    sgr[l] += r * g;
+                    sg0[l] += g * jw;
+                    sg1[l] += g * ja;
+                    sg2[l] += g * jt;
+                    s00[l] += jw * jw;
+                    s01[l] += jw * ja;
+                    s02[l] += jw * jt;
+                    s11[l] += ja * ja;
+                    s12[l] += ja * jt;
+                    s22[l] += jt * jt;
+                    sr0[l] += r * jw;
+                    sr1[l] += r * ja;
+                    sr2[l] += r * jt;
+                    double nc = c4[l] * dc4 - s4[l] * ds4;
+                    s4[l] = s4[l] * dc4 + c4[l] * ds4;
+                    c4[l] = nc;
+                    e4[l] *= de4;
+                    t4[l] += LN;
+                }
+            }
+            for (int l = 0; l < LN; l++) {
+                gg += sgg[l]; gr += sgr[l]; g0 += sg0[l]; g1 += sg1[l]; g2 += sg2[l];
+                n00 += s00[l]; n01 += s01[l]; n02 += s02[l]; n11 += s11[l]; n12 += s12[l];
+                n22 += s22[l]; r0 += sr0[l]; r1 += sr1[l]; r2 += sr2[l];
+            }
+            used += k - kf;
+            first = (double)k; /* the tail, below, one sample at a time */
+        }
+        double tau = first - ts, e = exp(-a * tau), co = cos(w * tau), si = sin(w * tau);
         for (double kd = first; kd <= hi && kd <= (double)k1; kd += st) {
             size_t k = (size_t)kd;
             while (ci < nclips && clips[ci].i1 < k)
