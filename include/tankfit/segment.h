@@ -13,7 +13,8 @@ extern "C" {
 #endif
 
 /* One current lobe: a stretch of one sign between two zeros (or a zero and a
- * slope break in overlapping operation). */
+ * slope break in overlapping operation). Times in seconds, currents in amperes,
+ * charge in coulombs. */
 typedef struct tf_lobe {
     double start_s, end_s;      /* sub-sample boundaries */
     int sign;                   /* +1 or -1 */
@@ -73,8 +74,9 @@ typedef struct tf_anomaly {
 typedef struct tf_stat3 { double min, median, max; size_t count; } tf_stat3;
 
 typedef struct tf_segment_options {
-    tf_topology topology;       /* TF_TOPO_UNKNOWN: infer from the lobe pattern */
-    double band_k;              /* hysteresis band in noise sigmas (0: default, docs/methods.md) */
+    tf_topology topology;       /* TF_TOPO_UNKNOWN: infer from the gates and lobe pattern */
+    double band_k;              /* hysteresis band in noise sigmas, > 0; 0: the default 4
+                                   (docs/segmenter.md explains the choice) */
 } tf_segment_options;
 
 typedef struct tf_segment_result {
@@ -96,17 +98,35 @@ typedef struct tf_segment_result {
     size_t clipped_stretches;     /* clipped stretches of the current found */
 } tf_segment_result;
 
+/* Defaults: topology inferred, band of 4 noise sigmas. */
 void tf_segment_options_init(tf_segment_options *o);
 
-/* Segment the current channel (roles->current) of cap, using the other roles
- * where present. *out is owned by the caller (tf_segment_free). */
+/* Segment the load current of a capture into lobes, bursts and firing cycles.
+ *
+ * cap: the capture (n >= 16 samples, dt_s > 0); not modified.
+ * roles: roles->current (required) is the load current in amperes; roles->gate[0..3]
+ *   (gate signals, any levels: a rising edge half way between the channel's extremes is a
+ *   firing), roles->voltage (output voltage: its step at each overlapping split is
+ *   reported) and roles->switch_voltage (T1 anode-cathode, volts: T1's reverse-bias time)
+ *   are used when >= 0. Known probe skews (tf_channel.skew_s) of gates are removed.
+ * opt: may be NULL (defaults).
+ * out: receives the result (owned by the caller, free with tf_segment_free); NULL on error.
+ * err: may be NULL.
+ * Times in the result are on the capture's time base (t0_s + k dt_s), in seconds.
+ * Errors: TF_ERR_USAGE (no current role), TF_ERR_DATA (too few samples, a non-positive
+ * sample period, a current with nothing above its noise band, no lobe found),
+ * TF_ERR_NOMEM. Never prints; uses at most two threads on records of 2e6 samples and
+ * more; memory grows with the number of lobes, not of samples (plus the capture). */
 tf_status tf_segment_run(const tf_capture *cap, const tf_roles *roles,
                          const tf_segment_options *opt, tf_segment_result **out,
                          tf_error *err);
 
+/* Free a result and everything it owns. NULL is a no-op. */
 void tf_segment_free(tf_segment_result *r);
 
-/* JSON view (keys: docs/json.md): a new reference owned by the caller. */
+/* JSON view: "topology", "mode", "lobes", "bursts", "cycles", "timing", "anomalies", ...
+ * (every key: docs/segmenter.md). A new reference owned by the caller (json_decref);
+ * NULL only when out of memory; an empty object for r == NULL. */
 json_t *tf_segment_to_json(const tf_segment_result *r);
 
 #ifdef __cplusplus
