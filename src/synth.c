@@ -252,13 +252,24 @@ static size_t first_at_or_after(double base, double dt, size_t n, double t)
 static void fill_run(const tf_synth *s, const tf_seg *g, double base, double dt, size_t ka,
                      size_t kb, float *const o[4])
 {
-    double P[9] = {0};
-    int dim = tf__seg_step_matrix(g, dt, P);
     int cs = g->cs, stray = (cs == CS(0, TF_K_DIODE)) && s->ls > 0;
     double E = g->E, R = g->R, L = g->L, ls = s->ls;
     double vak0 = tf__vak_static(s, 0, cs, 0), vak_slope = 0;
     if (cs == TF_CS_NONE) /* node floats with vc: v_ak1 is affine in vc */
         vak_slope = tf__vak_static(s, 0, cs, 1) - vak0;
+    /* a group of only constant channels (v_out, v_ak1 while a device conducts) needs
+     * no state */
+    if (!o[TF_SYN_I_LOAD] && !o[TF_SYN_V_C] && cs != TF_CS_NONE && !(o[TF_SYN_V_AK1] && stray)) {
+        for (size_t k = ka; k < kb; k++) {
+            if (o[TF_SYN_V_OUT])
+                o[TF_SYN_V_OUT][k] = (float)E;
+            if (o[TF_SYN_V_AK1])
+                o[TF_SYN_V_AK1][k] = (float)vak0;
+        }
+        return;
+    }
+    double P[9] = {0};
+    int dim = tf__seg_step_matrix(g, dt, P);
     for (size_t k = ka; k < kb;) {
         size_t end = k + ANCHOR_EVERY < kb ? k + ANCHOR_EVERY : kb;
         double x[3], didt, y[3];

@@ -698,7 +698,7 @@ static void test_synth_fill_matches_eval(void **state)
     float *out[TF_SYN_NCHAN];
     for (int c = 0; c < TF_SYN_NCHAN; c++)
         out[c] = buf[c];
-    double skew[TF_SYN_NCHAN] = {0, 40e-9, -25e-9, 0, 0, 0, 0, 0};
+    double skew[TF_SYN_NCHAN] = {0, 40e-9, -25e-9, 15e-9, 0, 0, 0, 0};
     double dt = 1e-7, t0 = -2e-5;
     tf_error e;
     for (int k = 0; k < CHUNKS; k++) {
