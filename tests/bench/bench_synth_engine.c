@@ -50,6 +50,7 @@ static void run(const char *name, tf_topology topo, double f, size_t n, double f
         out[chans[c]] = buf[c];
     double skew[TF_SYN_NCHAN] = {0, 20e-9, 20e-9, -10e-9, 0, 0, 0, 0};
     double t0 = now();
+    clock_t c0 = clock();
     for (size_t k = 0; k < n; k += B) {
         size_t m = n - k < B ? n - k : B;
         if (tf_synth_fill(s, (double)k / fs, 1 / fs, m, skew, out, &e) != TF_OK) {
@@ -58,12 +59,15 @@ static void run(const char *name, tf_topology topo, double f, size_t n, double f
         }
     }
     double t1 = now();
+    clock_t c1 = clock();
     json_t *j = tf_synth_truth(s, &e);
     double t2 = now();
+    clock_t c2 = clock();
     size_t niv;
     tf_synth_intervals(s, &niv);
-    printf("%-12s %zu samples x 6 channels (%.3g s simulated, %zu intervals): fill %.2f s, "
-           "truth %.2f s\n", name, n, d.duration_s, niv, t1 - t0, t2 - t1);
+    printf("%-12s %zu samples x 6 channels (%.3g s simulated, %zu intervals): fill %.2f s "
+           "(CPU %.2f s), truth %.2f s (CPU %.2f s)\n", name, n, d.duration_s, niv, t1 - t0,
+           (double)(c1 - c0) / CLOCKS_PER_SEC, t2 - t1, (double)(c2 - c1) / CLOCKS_PER_SEC);
     json_decref(j);
     tf_synth_destroy(s);
 }
