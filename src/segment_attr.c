@@ -351,8 +351,9 @@ static size_t firing_near(const seg_input *in, double t, double tol)
 }
 
 static tf_status attribute_devices(const seg_input *in, tf_topology topo, tf_lobe *L,
-                                   const lobe_rec *rec, size_t nl, seg_vec *an)
+                                   const lobe_rec *rec, size_t nl, seg_vec *an, int *inverted)
 {
+    int r_note_inverted = 0;
     const tf_capture *cap = in->cap;
     tf_status st = TF_OK;
     /* the thyristor sign of a single switch: the usual sign of lobes rising from zero */
@@ -363,6 +364,27 @@ static tf_status attribute_devices(const seg_input *in, tf_topology topo, tf_lob
             if (zero_kind(rec[j].k0))
                 vote += rec[j].sign;
         tsign = vote < 0 ? -1 : 1;
+    }
+    /* bridges: T1 (T1+T2) carries the positive current; when the gates say the opposite
+     * for most firings, the current probe is inverted: name the devices by the gates */
+    int flip = 1;
+    if ((topo == TF_TOPO_HALF_BRIDGE || topo == TF_TOPO_FULL_BRIDGE) && in->nfire) {
+        long agree = 0, disagree = 0;
+        for (size_t j = 0; j < nl; j++) {
+            if (!(zero_kind(rec[j].k0) || rec[j].k0 == SEG_B_FIRING))
+                continue;
+            size_t f = firing_near(in, rec[j].t0, fmax(3.0, 0.03 * (rec[j].t1 - rec[j].t0)));
+            if (f == SIZE_MAX)
+                continue;
+            if (gate_device(topo, in->fire_gate[f]) == thyristor_for(topo, rec[j].sign))
+                agree++;
+            else
+                disagree++;
+        }
+        if (disagree > agree) {
+            flip = -1;
+            r_note_inverted = 1;
+        }
     }
     unsigned char *used = in->nfire ? calloc(in->nfire, 1) : NULL;
     if (in->nfire && !used)
@@ -385,7 +407,7 @@ static tf_status attribute_devices(const seg_input *in, tf_topology topo, tf_lob
             tpos = rec[j].k1 == SEG_B_DIRECT && next_is_diode;
             if (!tpos) {
                 l->device = diode_of(thyristor_for(topo, topo == TF_TOPO_SINGLE ? tsign
-                                                                                : -l->sign));
+                                                                                : -flip * l->sign));
                 continue;
             }
         }
@@ -397,7 +419,7 @@ static tf_status attribute_devices(const seg_input *in, tf_topology topo, tf_lob
                                  tsign > 0 ? "positively" : "negatively");
                 continue;
             }
-            l->device = thyristor_for(topo, l->sign);
+            l->device = thyristor_for(topo, flip * l->sign);
             if (in->nfire && rec[j].k0 != SEG_B_EDGE) {
                 double tol = fmax(3.0, 0.03 * (rec[j].t1 - rec[j].t0));
                 size_t f = firing_near(in, rec[j].t0, tol);
@@ -427,7 +449,7 @@ static tf_status attribute_devices(const seg_input *in, tf_topology topo, tf_lob
             p->sign != l->sign && (topo == TF_TOPO_SINGLE ? l->sign == tsign : 1)) {
             /* current reverses again at the end of a diode interval: the thyristor
              * regained forward voltage too early and conducts without a firing */
-            l->device = thyristor_for(topo, l->sign);
+            l->device = thyristor_for(topo, flip * l->sign);
             st = add_anomaly(an, ts, "commutation-failure", "%s conducts again straight after "
                              "%s's interval of %.4g s, without a firing",
                              tf_device_name(l->device), tf_device_name(p->device),
@@ -448,6 +470,7 @@ static tf_status attribute_devices(const seg_input *in, tf_topology topo, tf_lob
                          "gate %d fired but no conduction lobe started", in->fire_gate[f] + 1);
     }
     free(used);
+    *inverted = r_note_inverted;
     return st;
 }
 
@@ -731,7 +754,13 @@ tf_status seg_attribute(const seg_input *in, seg_vec *runs, tf_topology topo,
             l->end_by_firing = rec[j].k1 == SEG_B_FIRING;
             l->partial = rec[j].k0 == SEG_B_EDGE || rec[j].k1 == SEG_B_EDGE;
         }
-        st = attribute_devices(in, topo, r->lobes, rec, nl, &an);
+        int inverted = 0;
+        st = attribute_devices(in, topo, r->lobes, rec, nl, &an, &inverted);
+        size_t l = strlen(r->topology_evidence);
+        if (inverted && l < sizeof r->topology_evidence)
+            snprintf(r->topology_evidence + l, sizeof r->topology_evidence - l,
+                     "; the gates fire the negative lobes of T1: current probe inverted, "
+                     "devices named by the gates");
     }
     for (size_t c = 0; c < in->nclips && st == TF_OK; c++)
         st = add_anomaly(&an, tf_capture_time(in->cap, in->clips[c].i0), "clipped",

@@ -728,6 +728,40 @@ static void test_segment_sim_commutation_failure(void **state)
     sim_free(&c);
 }
 
+/* An inverted current probe with gate channels: the devices follow the gates. */
+static void test_segment_sim_inverted_probe_gates(void **state)
+{
+    (void)state;
+    sim_case c = {0};
+    sim_run(&c, sim_design("half-bridge", "6 kHz", "20 us", "", ""), 1);
+    tf_roles roles;
+    tf_error err;
+    assert_int_equal(tf_roles_resolve(c.cap, NULL, NULL, &roles, &err), TF_OK);
+    float *x = c.cap->ch[roles.current].samples;
+    for (size_t k = 0; k < c.cap->n; k++)
+        x[k] = -x[k];
+    tf_segment_free(c.r);
+    c.r = NULL;
+    assert_int_equal(tf_segment_run(c.cap, &roles, NULL, &c.r, &err), TF_OK);
+    assert_non_null(strstr(c.r->topology_evidence, "inverted"));
+    assert_int_equal(c.r->nanomalies, 0);
+    /* the truth's devices, with every lobe's sign flipped */
+    json_t *iv = json_object_get(c.truth, "intervals");
+    size_t idx, checked = 0;
+    json_t *v;
+    json_array_foreach(iv, idx, v) {
+        double t0 = json_real_value(json_object_get(v, "start_s"));
+        for (size_t j = 0; j < c.r->nlobes; j++)
+            if (fabs(c.r->lobes[j].start_s - t0) < 2 * c.cap->dt_s && t0 > 1e-6) {
+                assert_string_equal(tf_device_name(c.r->lobes[j].device),
+                                    json_string_value(json_object_get(v, "device")));
+                checked++;
+            }
+    }
+    assert_true(checked >= 20);
+    sim_free(&c);
+}
+
 /* With a stray inductance in the thyristor-diode loop the switch voltage turns positive
  * before the diode stops (DOMAIN.md section 3): the reverse-bias time from the switch
  * voltage must match the simulator's and be shorter than the turn-off time available. */
@@ -883,6 +917,7 @@ int main(void)
         cmocka_unit_test(test_segment_sim_ring_down),
         cmocka_unit_test(test_segment_sim_commutation_failure),
         cmocka_unit_test(test_segment_sim_switch_voltage_reverse_bias),
+        cmocka_unit_test(test_segment_sim_inverted_probe_gates),
         cmocka_unit_test(test_segment_ngspice_reference),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
