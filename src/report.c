@@ -160,6 +160,7 @@ static const char css[] =
     "table{border-collapse:collapse;width:100%;margin:6px 0 10px;font-size:13.5px}\n"
     "th,td{border-bottom:1px solid var(--line);padding:4px 6px;text-align:left;"
     "vertical-align:top}\n"
+    "table.checks th:nth-child(1){width:21%}table.checks th:nth-child(6){width:30%}\n"
     "th{background:#ecece8}td.num{text-align:right;white-space:nowrap;"
     "font-variant-numeric:tabular-nums}\n"
     ".v{font-weight:bold;white-space:nowrap}.v.pass{color:var(--pass)}.v.fail{color:var(--fail)}"
