@@ -74,9 +74,12 @@ int tf_spice_write_netlist(const tf_design *d, const tf_spice_options *o, const 
 int tf_spice_available(void);
 
 /* Write the netlist, run `ngspice -b`, read its data back. On success returns 0 and
- * *out (caller frees with tf_capture_destroy) holds i_load, v_out, v_c, v_ak1 from
- * the design's start (or 0) to t_stop on the grid t_step. On failure returns -1,
- * *out is NULL and msg says why (ngspice missing, run failed: see the .log file). */
+ * *out (caller frees with tf_capture_destroy) holds i_load, v_out, v_c, v_ak1 on the
+ * grid k * t_step (k >= 0, anchored at t = 0, as `linearize` gives it) from the first
+ * grid point at or after the design's start (within half a step) to t_stop: with the
+ * defaults, the same instants as tf_synth_to_capture() of the design when start is a
+ * whole number of sample periods. On failure returns -1, *out is NULL and msg says
+ * why (ngspice missing, run failed: see the .log file next to the netlist). */
 int tf_spice_run(const tf_design *d, const tf_spice_options *o, tf_capture **out, char *msg,
                  size_t msg_size);
 
