@@ -474,6 +474,34 @@ static tf_status attribute_devices(const seg_input *in, tf_topology topo, tf_lob
     return st;
 }
 
+/* The level the current rests at in the dead zones: the median of samples taken from
+ * the middle half of each dead zone (chosen by time, not value). A probe offset shows
+ * here; the band is centred on zero, so it is reported rather than guessed away. */
+static tf_status rest_level(const seg_input *in, const seg_run *r, size_t nr, seg_vec *an)
+{
+    double *v = malloc(4096 * sizeof *v);
+    if (!v)
+        return TF_ERR_NOMEM;
+    size_t m = 0;
+    for (size_t j = 0; j + 1 < nr && m < 4096; j++) {
+        if (r[j].k_end != SEG_B_DEAD)
+            continue;
+        double a = r[j].t_end, b = r[j + 1].t_start, q = 0.25 * (b - a);
+        for (size_t k = (size_t)ceil(a + q); (double)k <= b - q && m < 4096; k++)
+            v[m++] = in->x[k];
+    }
+    tf_status st = TF_OK;
+    if (m >= 32) {
+        double med = median_of(v, m);
+        if (fabs(med) > 0.25 * in->band)
+            st = add_anomaly(an, tf_capture_time(in->cap, 0), "offset",
+                             "between lobes the current rests at %.4g A, not at zero (probe "
+                             "offset?): correct it with --offset NAME=%.4g", med, -med);
+    }
+    free(v);
+    return st;
+}
+
 /* ---- cycles, timing, mode ------------------------------------------------------- */
 
 static void stat3(double *v, size_t n, tf_stat3 *s)
@@ -768,6 +796,8 @@ tf_status seg_attribute(const seg_input *in, seg_vec *runs, tf_topology topo,
                          "the lobe's peak is not trusted", in->clips[c].at,
                          (double)in->clips[c].rail);
     r->clipped_stretches = in->nclips;
+    if (st == TF_OK)
+        st = rest_level(in, rr, runs->n, &an);
     if (st == TF_OK)
         st = build_cycles(in, r->lobes, rec, nl, wsplit, topo == TF_TOPO_RING_DOWN, &cyc);
     if (st == TF_OK) {

@@ -468,6 +468,35 @@ static void test_segment_missing_firing(void **state)
     segw_free(&w);
 }
 
+/* A probe offset smaller than the band: the timing holds and the rest level is reported. */
+static void test_segment_offset_reported(void **state)
+{
+    (void)state;
+    segw_cfg c;
+    segw_defaults(&c);
+    c.snr_db = 40;
+    segw_out w;
+    assert_int_equal(segw_make(&c, &w), 0);
+    float *x = w.cap->ch[0].samples;
+    double off = 2.0 * w.noise; /* half of the 4-sigma band */
+    for (size_t k = 0; k < w.cap->n; k++)
+        x[k] += (float)off;
+    tf_segment_result *r = segment(&w, TF_TOPO_UNKNOWN);
+    assert_int_equal(count_anomalies(r, "offset"), 1);
+    for (size_t a = 0; a < r->nanomalies; a++)
+        if (strcmp(r->anomalies[a].kind, "offset") == 0)
+            assert_non_null(strstr(r->anomalies[a].text, "--offset"));
+    assert_int_equal(r->mode, TF_MODE_NON_OVERLAPPING);
+    tf_segment_free(r);
+    /* and none without the offset */
+    for (size_t k = 0; k < w.cap->n; k++)
+        x[k] -= (float)off;
+    r = segment(&w, TF_TOPO_UNKNOWN);
+    assert_int_equal(count_anomalies(r, "offset"), 0);
+    tf_segment_free(r);
+    segw_free(&w);
+}
+
 static void test_segment_errors(void **state)
 {
     (void)state;
@@ -908,6 +937,7 @@ int main(void)
         cmocka_unit_test(test_segment_unclipped_quantised_peaks_not_clipped),
         cmocka_unit_test(test_segment_commutation_failure),
         cmocka_unit_test(test_segment_missing_firing),
+        cmocka_unit_test(test_segment_offset_reported),
         cmocka_unit_test(test_segment_errors),
         cmocka_unit_test(test_segment_json_keys),
         cmocka_unit_test(test_segment_sim_half_bridge_current_only),

@@ -67,7 +67,8 @@ typedef struct tf_cycle {
 
 typedef struct tf_anomaly {
     double time_s;
-    char kind[32];              /* "missing-firing", "out-of-sequence", "commutation-failure", "clipped" */
+    char kind[32];              /* "missing-firing", "out-of-sequence", "commutation-failure",
+                                   "clipped", "offset" (the current rests away from zero) */
     char text[192];
 } tf_anomaly;
 
