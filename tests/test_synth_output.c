@@ -743,6 +743,66 @@ static void test_synth_output_csv_through_importer(void **state)
     free(d);
 }
 
+typedef struct progress_log {
+    int calls;
+    double last;
+    int decreasing;
+} progress_log;
+
+static void on_progress(void *ctx, double fraction)
+{
+    progress_log *p = ctx;
+    if (fraction < p->last)
+        p->decreasing = 1;
+    p->last = fraction;
+    p->calls++;
+}
+
+static void test_synth_output_format_choice_and_progress(void **state)
+{
+    (void)state;
+    tf_error err;
+    tf_design *d = hb_design();
+    d->duration_s = 20e-3; /* 40 000 samples: five blocks */
+    d->format_wav = 1;
+    tf_synth_write_options o;
+    tf_synth_write_options_init(&o);
+    progress_log log = {0, 0, 0};
+    o.progress = on_progress;
+    o.progress_ctx = &log;
+    /* an extension that says nothing: the design's format (WAV, with its sidecar) */
+    const char *path = tf_test_tmpfile("capture.dat");
+    assert_int_equal(tf_synth_write_opts(d, path, NULL, &o, &err), TF_OK);
+    size_t n;
+    char *bytes = tf_test_slurp(path, &n);
+    assert_non_null(bytes);
+    assert_memory_equal(bytes, "RIFF", 4);
+    assert_memory_equal(bytes + 8, "WAVE", 4);
+    free(bytes);
+    char side[1100];
+    snprintf(side, sizeof side, "%s.tfscale", path);
+    bytes = tf_test_slurp(side, NULL);
+    assert_non_null(bytes);
+    free(bytes);
+    assert_int_equal(log.calls, 5);
+    assert_false(log.decreasing);
+    assert_true(log.last == 1.0);
+    /* .csv wins over the design's format; a forced format wins over both */
+    const char *csv = tf_test_tmpfile("capture.csv");
+    assert_int_equal(tf_synth_write(d, csv, NULL, 0, &err), TF_OK);
+    bytes = tf_test_slurp(csv, NULL);
+    assert_memory_equal(bytes, "time (s),", 9);
+    free(bytes);
+    o.format = 1;
+    o.progress = NULL;
+    const char *forced = tf_test_tmpfile("forced.wav");
+    assert_int_equal(tf_synth_write_opts(d, forced, NULL, &o, &err), TF_OK);
+    bytes = tf_test_slurp(forced, NULL);
+    assert_memory_equal(bytes, "time (s),", 9);
+    free(bytes);
+    free(d);
+}
+
 static void test_synth_output_refuses_and_leaves_nothing(void **state)
 {
     (void)state;
@@ -796,6 +856,7 @@ int main(void)
         cmocka_unit_test(test_synth_output_imperfections),
         cmocka_unit_test(test_synth_output_wav_through_importer),
         cmocka_unit_test(test_synth_output_csv_through_importer),
+        cmocka_unit_test(test_synth_output_format_choice_and_progress),
         cmocka_unit_test(test_synth_output_refuses_and_leaves_nothing),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
