@@ -31,6 +31,8 @@ typedef struct job_ctx {
     double drop_v;        /* V_T + V_D per commutation; NAN when unknown */
     double c_f, l_h;      /* known C or L (NAN when not) */
     tf_fit_burst *out;
+    int multi_lobe;       /* some burst has two or more lobes */
+    size_t longest;       /* samples of the longest burst (ring-down: fragments are short) */
     lobe_fit *lobes;
     size_t njobs;
     atomic_size_t next;
@@ -99,11 +101,15 @@ static void fit_one_burst(const job_ctx *c, tf_dsfit_workspace *ws, size_t k)
         b->status = TF_FITB_ANOMALOUS;
         return;
     }
-    if (i1 <= i0 || i1 - i0 < 16) {
+    /* a burst is a thyristor lobe and its diode lobe (or a ring-down): a lone lobe is
+     * a fragment (the record's edge, the end of a ring-down) */
+    if (i1 <= i0 || i1 - i0 < 16 || (sb->nlobes == 1 && c->multi_lobe) ||
+        (c->seg->topology == TF_TOPO_RING_DOWN && 4 * (i1 - i0) < c->longest)) {
         b->status = TF_FITB_SHORT;
         return;
     }
-    tf_dsfit_options o = {c->opt->offset_term, 0.0, 0, 0.0, 0.0, 0.0};
+    tf_dsfit_options o = {c->opt->offset_term || c->seg->topology == TF_TOPO_SINGLE, 0.0, 0,
+                          0.0, 0.0, 0.0};
     if (isfinite(c->drop_v) && (isfinite(c->c_f) || isfinite(c->l_h))) {
         o.drop_step_v = c->drop_v;
         o.drop_c_f = isfinite(c->c_f) ? c->c_f : 0.0;
@@ -118,6 +124,11 @@ static void fit_one_burst(const job_ctx *c, tf_dsfit_workspace *ws, size_t k)
     const double w0raw = hypot(fit.raw_wd_rad_s, fit.raw_alpha_per_s);
     const double lraw = tank_l(c, w0raw);
     const double a = fit.alpha_per_s, wd = fit.wd_rad_s, w0 = hypot(wd, a);
+    if (!(a > 0) || !(fit.raw_alpha_per_s > 0) || !(wd > a / 10)) {
+        /* growing or overdamped: not a lossy resonant tank, the fit found no burst */
+        b->status = TF_FITB_FAILED;
+        return;
+    }
     b->fd_hz = wd / (2 * M_PI);
     b->u_fd_hz = fit.u_wd_rad_s / (2 * M_PI);
     b->alpha_per_s = a;
@@ -501,6 +512,12 @@ tf_status tf_fit_run(const tf_capture *cap, const tf_roles *roles, const tf_segm
                    (seg->topology == TF_TOPO_FULL_BRIDGE ? 2.0 : 1.0);
     c.out = fb;
     c.lobes = lf;
+    for (size_t k = 0; k < nb; k++) {
+        c.multi_lobe |= seg->bursts[k].nlobes >= 2;
+        const size_t len = seg->bursts[k].i1 > seg->bursts[k].i0 ? seg->bursts[k].i1 - seg->bursts[k].i0 : 0;
+        if (len > c.longest)
+            c.longest = len;
+    }
     atomic_init(&c.next, 0);
     atomic_init(&c.nomem, 0);
     const int threads = opt->threads > 0 ? opt->threads : default_threads();
@@ -581,6 +598,13 @@ static tf_status run_vi_power(const tf_capture *cap, const tf_roles *roles,
         add_note(r, "%s", "no output-voltage channel: v-i identification and power method not run");
         return TF_OK;
     }
+    if (seg->topology == TF_TOPO_RING_DOWN) {
+        /* the voltage across a ringing tank is only the device drops: the circuit
+         * equation is then homogeneous and fixes R/L and 1/(LC), not L and C */
+        add_note(r, "%s", "ring-down: the output voltage carries only the device drops, so v-i "
+                          "identification and the power method are not run");
+        return TF_OK;
+    }
     const float *v = cap->ch[roles->voltage].samples, *i = cap->ch[roles->current].samples;
     const size_t n = cap->n, nb = seg->nbursts;
     tf_window *win = malloc((nb + 1) * sizeof *win);
@@ -650,6 +674,8 @@ static tf_status run_vi_power(const tf_capture *cap, const tf_roles *roles,
         if (pos >= 0 && pos < (double)n)
             bnd[nbnd++] = (size_t)floor(pos + 0.5);
     }
+    if (seg->topology == TF_TOPO_RING_DOWN)
+        nbnd = 0; /* one release, no firing periods */
     if (nbnd >= 2) {
         double rp, up;
         const double sk = isfinite(r->skew_s) ? r->skew_s : 0.0;
@@ -665,7 +691,7 @@ static tf_status run_vi_power(const tf_capture *cap, const tf_roles *roles,
         } else
             tf_error_clear(err);
     } else
-        add_note(r, "%s", "power method needs at least one whole firing period: not run");
+        add_note(r, "%s", "power method needs whole firing periods: not run");
     free(bnd);
     (void)scratch;
     return TF_OK;

@@ -428,7 +428,11 @@ static size_t analytic_crossings(tf_dsfit_workspace *w, int b, const double *p, 
 {
     const double phi = atan2(p[2], p[3]), wv = p[1], lobe = M_PI / wv;
     size_t nc = 0;
-    for (long m = 0;; m++) {
+    if (!(wv > 0) || !(wv < M_PI) || !isfinite(phi))
+        return 0; /* no oscillation below Nyquist: nothing to place */
+    /* at most one zero per pi / wv samples: m stays below n wv / pi + 2 */
+    const long mmax = (long)((double)n * wv / M_PI) + 2;
+    for (long m = 0; m <= mmax; m++) {
         const double k = ((double)m * M_PI - phi) / wv;
         if (k > (double)(n - 1) - 0.1 * lobe)
             break;

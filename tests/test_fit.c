@@ -574,6 +574,49 @@ static void test_fit_ngspice_reference(void **state)
     free(d);
 }
 
+/* A simulated ring-down through T1/D1 (300 V precharge, drops at every crossing): the
+ * segmenter's fragments after the end are excluded, R is drop-corrected, v-i is not run. */
+static void test_fit_simulator_ringdown(void **state)
+{
+    (void)state;
+    static const char *text =
+        "[inverter]\ntopology = ring-down\nprecharge = 300 V\n"
+        "[tank]\ncapacitance = 2.2 uF\ninductance = 36 uH\nresistance = 0.45 ohm\n"
+        "[switch]\nturnoff_time = 20 us\nthyristor_drop = 1.6 V\ndiode_drop = 1.1 V\n"
+        "[channels]\ncurrent = i_load\noutput_voltage = v_out\n"
+        "[capture]\nsample_rate = 10 MS/s\nduration = 1 ms\nseed = 5\n"
+        "i_load.noise = 0.3 A\ni_load.range = 150 A\ni_load.bits = 8\n";
+    tf_design *d = malloc(sizeof *d);
+    tf_error e;
+    tf_design_init(d);
+    assert_int_equal(tf_design_parse(text, strlen(text), "ring", d, &e), TF_OK);
+    tf_capture *cap;
+    json_t *truth;
+    assert_int_equal(tf_synth_to_capture(d, 0, &cap, &truth, &e), TF_OK);
+    tf_analysis_options o;
+    tf_analysis_options_init(&o, d);
+    o.skip_spectrum = 1;
+    tf_analysis *an;
+    assert_int_equal(tf_analysis_run(cap, d, &o, &an, &e), TF_OK);
+    assert_non_null(an->fit);
+    const tf_fit_result *r = an->fit;
+    print_message("ring-down: fd %g (truth %g), R %g raw %g, %zu fitted, %zu excluded\n",
+                  r->damped_frequency_hz.value, truth_num(truth, "tank", "fd_hz"),
+                  r->resistance_ohm.value, r->resistance_raw_ohm.value, r->bursts_fitted,
+                  r->bursts_excluded);
+    /* source: simulator truth (the design's tank) */
+    assert_true(tf_test_reldiff(r->damped_frequency_hz.value, truth_num(truth, "tank", "fd_hz")) < 1e-3);
+    assert_true(tf_test_reldiff(r->resistance_ohm.value, 0.45) < 0.03);
+    assert_true(tf_test_reldiff(r->inductance_h.value, 36e-6) < 0.03);
+    /* 300 V and 2.7 V drops at ~15 crossings: the plain fit is far too high */
+    assert_true(r->resistance_raw_ohm.value > 1.08 * 0.45);
+    assert_true(isnan(r->vi_r.value) && isnan(r->power_r.value));
+    tf_analysis_free(an);
+    json_decref(truth);
+    tf_capture_destroy(cap);
+    free(d);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -592,6 +635,7 @@ int main(void)
         cmocka_unit_test(test_fit_skew_given),
         cmocka_unit_test(test_fit_simulator_truth),
         cmocka_unit_test(test_fit_ngspice_reference),
+        cmocka_unit_test(test_fit_simulator_ringdown),
     };
     if (getenv("TF_TEST_FILTER")) /* run one case by name, e.g. for timing */
         cmocka_set_test_filter(getenv("TF_TEST_FILTER"));
