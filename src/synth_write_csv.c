@@ -125,26 +125,42 @@ size_t tf_sw_format_sci(char *out, double v, int digits)
         if (e2 == -1023) /* subnormal */
             e = (int)floor(log10(v));
         double x = 0;
+        int dir = 0, carry = 0;
         for (int tries = 0; tries < 4; tries++) {
             x = scale10(v, digits - 1 - e);
-            if (x >= p10[digits])
+            if (x >= p10[digits]) {
                 e++;
-            else if (x < p10[digits - 1])
+                if (dir < 0) { /* at e - 1 it scaled below 10^(d-1): v is a hair under 10^e */
+                    carry = 1;
+                    break;
+                }
+                dir = 1;
+            } else if (x < p10[digits - 1]) {
+                if (dir > 0) { /* at e - 1 the scaling rounded up to 10^d: carry */
+                    carry = 1;
+                    break;
+                }
                 e--;
-            else
+                dir = -1;
+            } else {
                 break;
+            }
         }
-        double r = round_scaled(v, digits - 1 - e, x);
-        if (r < 0) {
-            char tmp[40];
-            int n = snprintf(tmp, sizeof tmp, "%.*e", digits - 1, neg ? -v : v);
-            memcpy(out, tmp, (size_t)n);
-            return (size_t)n;
-        }
-        m = (uint64_t)(int64_t)r;
-        if (m >= p10u[digits]) { /* 9.99..5 rounds up to 1.00..0 e+1 */
-            m = p10u[digits - 1];
-            e++;
+        if (carry) {
+            m = p10u[digits - 1]; /* 9.99..9x rounds up to 1.00..0 at the next power */
+        } else {
+            double r = round_scaled(v, digits - 1 - e, x);
+            if (r < 0) {
+                char tmp[40];
+                int n = snprintf(tmp, sizeof tmp, "%.*e", digits - 1, neg ? -v : v);
+                memcpy(out, tmp, (size_t)n);
+                return (size_t)n;
+            }
+            m = (uint64_t)(int64_t)r;
+            if (m >= p10u[digits]) { /* 9.99..5 rounds up to 1.00..0 e+1 */
+                m = p10u[digits - 1];
+                e++;
+            }
         }
     }
     char dig[16];

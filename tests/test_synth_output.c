@@ -46,6 +46,22 @@ static void test_synth_output_format_matches_printf(void **state)
     /* every digit as printf prints it (correctly rounded, ties to even) */
     assert_int_equal(differ, 0);
     assert_true(total == 15 * 20000);
+    /* next to every power of ten, where a rounding carry moves the exponent */
+    for (int k = -300; k <= 300; k++) {
+        char s[16];
+        snprintf(s, sizeof s, "1e%d", k);
+        double p = strtod(s, NULL);
+        double vs[5] = {p, nextafter(p, 0), nextafter(p, INFINITY), p * 0.99999999999999,
+                        p * (1 - 0.5e-15)};
+        for (int i = 0; i < 5; i++)
+            for (int digits = 1; digits <= 15; digits++) {
+                char mine[32], ref[64];
+                mine[tf_sw_format_sci(mine, vs[i], digits)] = '\0';
+                snprintf(ref, sizeof ref, "%.*e", digits - 1, vs[i]); /* reference: printf */
+                if (strcmp(mine, ref) != 0)
+                    fail_msg("%.17g with %d digits: '%s', printf '%s'", vs[i], digits, mine, ref);
+            }
+    }
     char b[32];
     size_t n = tf_sw_format_sci(b, 0.0, 6);
     b[n] = 0;
