@@ -36,6 +36,8 @@ typedef struct compare_result {
     double worst_cross_s;   /* largest |t_engine - t_spice| over matched crossings */
     double rms_diff_a, peak_a;
     double worst_vc_v;      /* largest |v_c difference| */
+    double rms_vout_flat_v; /* RMS v_out difference away from its steps */
+    size_t n_flat;
 } compare_result;
 
 /* Engine (noiseless) against ngspice run on design ds (normally the same as d). */
@@ -55,8 +57,9 @@ static void compare2(const tf_design *d, const tf_design *dsp, const char *name,
     int rc = tf_spice_run(dsp, &o, &sp, msg, sizeof msg);
     if (rc != 0)
         fail_msg("%s", msg);
-    int ie = tf_capture_find(eng, "i_load"), ce = tf_capture_find(eng, "v_c");
-    assert_true(ie >= 0 && ce >= 0);
+    int ie = tf_capture_find(eng, "i_load"), ce = tf_capture_find(eng, "v_c"),
+        oe = tf_capture_find(eng, "v_out");
+    assert_true(ie >= 0 && ce >= 0 && oe >= 0);
     size_t n = eng->n < sp->n ? eng->n : sp->n;
     assert_true(n + 2 >= eng->n); /* ngspice covered the whole window */
     assert_true(fabs(sp->t0_s - eng->t0_s) < 1e-12 && fabs(sp->dt_s - eng->dt_s) < 1e-15);
@@ -70,6 +73,21 @@ static void compare2(const tf_design *d, const tf_design *dsp, const char *name,
     r->peak_a = peak;
     r->rms_diff_a = sqrt(sum2 / (double)n);
     r->worst_vc_v = wvc;
+    /* v_out away from its steps: both sides change by less than 2 V per sample over
+     * three samples around k (a step of the bridge is hundreds of volts in one sample) */
+    const float *va = eng->ch[oe].samples, *vb = sp->ch[1].samples;
+    double so2 = 0;
+    r->n_flat = 0;
+    for (size_t k = 2; k + 2 < n; k++) {
+        int flat = 1;
+        for (size_t j = k - 2; j < k + 2 && flat; j++)
+            flat = fabs(va[j + 1] - va[j]) < 2 && fabs(vb[j + 1] - vb[j]) < 2;
+        if (flat) {
+            so2 += ((double)va[k] - vb[k]) * ((double)va[k] - vb[k]);
+            r->n_flat++;
+        }
+    }
+    r->rms_vout_flat_v = r->n_flat ? sqrt(so2 / (double)r->n_flat) : INFINITY;
     enum { MAXC = 512 };
     static double te[MAXC], ts[MAXC];
     static int de[MAXC], ds[MAXC];
@@ -90,9 +108,11 @@ static void compare2(const tf_design *d, const tf_design *dsp, const char *name,
             }
         }
     print_message("%s: peak %.3f A, rms diff %.4f A (%.3f %% of peak), %zu/%zu crossings, "
-                  "worst %.1f ns (crossing %zu at %.2f us), worst v_c diff %.3f V\n", name, peak,
-                  r->rms_diff_a, 100 * r->rms_diff_a / peak, r->n_cross_engine, r->n_cross_spice,
-                  r->worst_cross_s * 1e9, worst_k, te[worst_k] * 1e6, wvc);
+                  "worst %.1f ns (crossing %zu at %.2f us), worst v_c diff %.3f V, v_out diff "
+                  "%.3f V rms on %zu flat samples\n", name, peak, r->rms_diff_a,
+                  100 * r->rms_diff_a / peak, r->n_cross_engine, r->n_cross_spice,
+                  r->worst_cross_s * 1e9, worst_k, te[worst_k] * 1e6, wvc, r->rms_vout_flat_v,
+                  r->n_flat);
     tf_capture_destroy(eng);
     tf_capture_destroy(sp);
 }
@@ -111,6 +131,10 @@ static void check_tolerances(const tf_design *d, const compare_result *r)
     assert_int_equal(r->n_cross_engine, r->n_cross_spice);
     assert_true(r->worst_cross_s <= 0.002 * period);
     assert_true(r->rms_diff_a <= 0.01 * r->peak_a);
+    /* the bridge output levels (link, drops, the capacitor voltage in dead zones) agree
+     * within 0.5 % of the link away from the steps */
+    assert_true(r->n_flat > 9000);
+    assert_true(r->rms_vout_flat_v <= 0.005 * d->dc_link_v);
 }
 
 static const char *truth_mode(json_t *t)
@@ -256,6 +280,7 @@ static void test_spice_ring_down(void **state)
                      pow(d->resistance_ohm / (2 * d->inductance_h), 2));
     assert_true(r.worst_cross_s <= 0.002 * 2 * M_PI / wd);
     assert_true(r.rms_diff_a <= 0.01 * r.peak_a);
+    assert_true(r.rms_vout_flat_v <= 0.005 * d->precharge_v);
     json_decref(t);
     free(d);
 }
@@ -275,6 +300,7 @@ static void test_spice_detects_a_wrong_inductance(void **state)
     compare2(d, wrong, "wrong_l", &r, &t);
     assert_int_equal(r.n_cross_engine, r.n_cross_spice);
     assert_true(r.worst_cross_s > 0.002 / d->firing_frequency_hz);
+    assert_true(r.rms_vout_flat_v > 0.005 * d->dc_link_v);
     json_decref(t);
     free(wrong);
     free(d);
