@@ -364,7 +364,8 @@ static void agreement(tf_fit_result *r, int c_given, int l_given)
      * between bursts (a heating run) it is not comparable with the burst median */
     const tf_fit_spread *sp = &r->s_resistance_ohm;
     const int varies = sp->count > 2 && sp->max - sp->min > 0.04 * fabs(sp->median) &&
-                       sp->spread > 0.01 * fabs(sp->median);
+                       sp->spread > 0.01 * fabs(sp->median) &&
+                       !(sp->spread <= 2.0 * r->r_burst_u_ohm); /* beyond the fits' own noise */
     ringdown_pair(r, &r->vi_r, c_given, l_given, clip);
     if (isfinite(r->power_r.value) && varies) {
         add_note(r, "%s", "R varies between bursts: the power method's whole-capture average is "
@@ -440,6 +441,9 @@ static void summarise_ringdown(tf_fit_result *r, const job_ctx *c, tf_fit_burst 
     if (isfinite(c->c_f) || isfinite(c->l_h)) {
         combine(fb, nb, OFF(resistance_ohm), OFF(u_resistance_ohm), scratch, &r->s_resistance_ohm, &u);
         est_set(&r->ringdown_r, r->s_resistance_ohm.median, u, m);
+        tf_fit_spread su;
+        combine(fb, nb, OFF(u_resistance_ohm), (size_t)-1, scratch, &su, &u);
+        r->r_burst_u_ohm = su.median;
         combine(fb, nb, OFF(resistance_raw_ohm), OFF(u_resistance_ohm), scratch, &sp, &u);
         est_set(&r->resistance_raw_ohm, sp.median, u, "ring-down");
         if (isfinite(c->l_h)) {
@@ -492,7 +496,7 @@ tf_status tf_fit_run(const tf_capture *cap, const tf_roles *roles, const tf_segm
     d->bursts = fb;
     d->nbursts = nb;
     r->detail = d;
-    r->skew_s = r->skew_u_s = NANV;
+    r->skew_s = r->skew_u_s = r->r_burst_u_ohm = NANV;
     snprintf(r->skew_method, sizeof r->skew_method, "none");
 
     job_ctx c;
@@ -630,6 +634,12 @@ static tf_status run_vi_power(const tf_capture *cap, const tf_roles *roles,
         mr = mr > len / 2 ? len / 2 : (mr < 2 ? 2 : mr);
         win[nw].i0 = b->i0 > ml ? b->i0 - ml : 0;
         win[nw].i1 = b->i1 + mr < n ? b->i1 + mr : n;
+        /* no dead time after this burst (overlapping, continuous): the next firing's
+         * voltage step must lie inside the window, so take the next burst in too */
+        if (next_start < b->i1 + len / 10 && k + 1 < nb) {
+            const size_t e2 = seg->bursts[k + 1].i1;
+            win[nw].i1 = e2 + 2 < n ? e2 + 2 : n;
+        }
         win[nw].burst = k;
         nw++;
     }

@@ -617,6 +617,39 @@ static void test_fit_simulator_ringdown(void **state)
     free(d);
 }
 
+/* Overlapping operation (10 kHz firing, bursts of 56 us: no dead time): the v-i windows
+ * take the next firing's voltage step in, R, L, C within 3 %. */
+static void test_fit_simulator_overlapping(void **state)
+{
+    (void)state;
+    tf_design *d = load_stage();
+    d->firing_frequency_hz = 10e3;
+    d->duration_s = 3e-3;
+    tf_capture *cap;
+    json_t *truth;
+    tf_error e;
+    assert_int_equal(tf_synth_to_capture(d, 0, &cap, &truth, &e), TF_OK);
+    tf_analysis_options o;
+    tf_analysis_options_init(&o, d);
+    o.skip_spectrum = 1;
+    tf_analysis *an;
+    assert_int_equal(tf_analysis_run(cap, d, &o, &an, &e), TF_OK);
+    assert_int_equal(an->seg->mode, TF_MODE_OVERLAPPING);
+    assert_non_null(an->fit);
+    const tf_fit_result *r = an->fit;
+    /* source: simulator truth (the design's tank) */
+    assert_true(tf_test_reldiff(r->resistance_ohm.value, 0.45) < 0.03);
+    assert_true(tf_test_reldiff(r->vi_r.value, 0.45) < 0.03);
+    assert_true(tf_test_reldiff(r->vi_l.value, 36e-6) < 0.03);
+    assert_true(tf_test_reldiff(r->vi_c.value, 2.2e-6) < 0.03);
+    assert_true(fabs(r->skew_s - 50e-9) < 10e-9);
+    assert_int_equal(r->nwarnings, 0);
+    tf_analysis_free(an);
+    json_decref(truth);
+    tf_capture_destroy(cap);
+    free(d);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -636,6 +669,7 @@ int main(void)
         cmocka_unit_test(test_fit_simulator_truth),
         cmocka_unit_test(test_fit_ngspice_reference),
         cmocka_unit_test(test_fit_simulator_ringdown),
+        cmocka_unit_test(test_fit_simulator_overlapping),
     };
     if (getenv("TF_TEST_FILTER")) /* run one case by name, e.g. for timing */
         cmocka_set_test_filter(getenv("TF_TEST_FILTER"));

@@ -152,6 +152,7 @@ typedef struct tf_fit_result {
     int drops_modelled;               /* the drop-corrected model was used */
     double drop_step_v;               /* V_T + V_D per commutation (x2 full bridge) */
     tf_fit_spread s_fd_hz, s_alpha_per_s, s_q, s_resistance_ohm;
+    double r_burst_u_ohm;             /* typical (median) single-burst u of the ring-down R */
     tf_fit_lobes lobes;
     /* notes (what could not be derived and why) and agreement warnings */
     char notes[TF_FIT_MAX_NOTES][192];
