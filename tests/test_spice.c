@@ -37,6 +37,7 @@ typedef struct compare_result {
     double rms_diff_a, peak_a;
     double worst_vc_v;      /* largest |v_c difference| */
     double rms_vout_flat_v; /* RMS v_out difference away from its steps */
+    double rms_vak_flat_v;  /* the same for v_ak1 */
     size_t n_flat;
 } compare_result;
 
@@ -58,8 +59,8 @@ static void compare2(const tf_design *d, const tf_design *dsp, const char *name,
     if (rc != 0)
         fail_msg("%s", msg);
     int ie = tf_capture_find(eng, "i_load"), ce = tf_capture_find(eng, "v_c"),
-        oe = tf_capture_find(eng, "v_out");
-    assert_true(ie >= 0 && ce >= 0 && oe >= 0);
+        oe = tf_capture_find(eng, "v_out"), ae = tf_capture_find(eng, "v_ak1");
+    assert_true(ie >= 0 && ce >= 0 && oe >= 0 && ae >= 0);
     size_t n = eng->n < sp->n ? eng->n : sp->n;
     assert_true(n + 2 >= eng->n); /* ngspice covered the whole window */
     assert_true(fabs(sp->t0_s - eng->t0_s) < 1e-12 && fabs(sp->dt_s - eng->dt_s) < 1e-15);
@@ -76,18 +77,27 @@ static void compare2(const tf_design *d, const tf_design *dsp, const char *name,
     /* v_out away from its steps: both sides change by less than 2 V per sample over
      * three samples around k (a step of the bridge is hundreds of volts in one sample) */
     const float *va = eng->ch[oe].samples, *vb = sp->ch[1].samples;
-    double so2 = 0;
+    const float *aa = eng->ch[ae].samples, *ab = sp->ch[3].samples;
+    double so2 = 0, sa2 = 0;
+    size_t na = 0;
     r->n_flat = 0;
     for (size_t k = 2; k + 2 < n; k++) {
-        int flat = 1;
-        for (size_t j = k - 2; j < k + 2 && flat; j++)
-            flat = fabs(va[j + 1] - va[j]) < 2 && fabs(vb[j + 1] - vb[j]) < 2;
+        int flat = 1, aflat = 1;
+        for (size_t j = k - 2; j < k + 2; j++) {
+            flat = flat && fabs(va[j + 1] - va[j]) < 2 && fabs(vb[j + 1] - vb[j]) < 2;
+            aflat = aflat && fabs(aa[j + 1] - aa[j]) < 2 && fabs(ab[j + 1] - ab[j]) < 2;
+        }
         if (flat) {
             so2 += ((double)va[k] - vb[k]) * ((double)va[k] - vb[k]);
             r->n_flat++;
         }
+        if (aflat) {
+            sa2 += ((double)aa[k] - ab[k]) * ((double)aa[k] - ab[k]);
+            na++;
+        }
     }
     r->rms_vout_flat_v = r->n_flat ? sqrt(so2 / (double)r->n_flat) : INFINITY;
+    r->rms_vak_flat_v = na ? sqrt(sa2 / (double)na) : INFINITY;
     enum { MAXC = 512 };
     static double te[MAXC], ts[MAXC];
     static int de[MAXC], ds[MAXC];
@@ -109,10 +119,10 @@ static void compare2(const tf_design *d, const tf_design *dsp, const char *name,
         }
     print_message("%s: peak %.3f A, rms diff %.4f A (%.3f %% of peak), %zu/%zu crossings, "
                   "worst %.1f ns (crossing %zu at %.2f us), worst v_c diff %.3f V, v_out diff "
-                  "%.3f V rms on %zu flat samples\n", name, peak, r->rms_diff_a,
+                  "%.3f V rms on %zu flat samples, v_ak1 %.3f V\n", name, peak, r->rms_diff_a,
                   100 * r->rms_diff_a / peak, r->n_cross_engine, r->n_cross_spice,
                   r->worst_cross_s * 1e9, worst_k, te[worst_k] * 1e6, wvc, r->rms_vout_flat_v,
-                  r->n_flat);
+                  r->n_flat, r->rms_vak_flat_v);
     tf_capture_destroy(eng);
     tf_capture_destroy(sp);
 }
@@ -135,6 +145,7 @@ static void check_tolerances(const tf_design *d, const compare_result *r)
      * within 0.5 % of the link away from the steps */
     assert_true(r->n_flat > 9000);
     assert_true(r->rms_vout_flat_v <= 0.005 * d->dc_link_v);
+    assert_true(r->rms_vak_flat_v <= 0.005 * d->dc_link_v); /* T1 anode-cathode */
 }
 
 static const char *truth_mode(json_t *t)
