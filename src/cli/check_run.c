@@ -346,8 +346,8 @@ int tf_check_run_execute(const tf_check_args *a, time_t when, tf_check_run *r)
             return rc;
         tf_capture_compute_stats(it->cap);
         if (tf_analysis_run(it->cap, r->design, &o, &it->an, &err) != TF_OK) {
-            fprintf(stderr, "tankfit: %s: ", it->path);
-            return tf_cli_fail(&err);
+            fprintf(stderr, "tankfit: %s: %s\n", it->path, err.msg);
+            return tf_exit_code(err.code);
         }
         tf_check_input in = {r->design, it->cap, it->an, r->exp_an, r->exp_cap, r->exp_note};
         if (tf_check_evaluate(&in, &it->res, &err) != TF_OK)
@@ -410,7 +410,7 @@ static void limit_text(char *buf, size_t size, const tf_check *c)
 
 void tf_check_run_print(FILE *out, const tf_check_run *r)
 {
-    char a[64], b[64], m[128], l[128];
+    char a[64], b[64], m[160], l[160];
     for (size_t k = 0; k < r->nitems; k++) {
         const tf_check_item *it = &r->items[k];
         fprintf(out, "Capture %zu: %s  [%s]\n", k + 1, it->path, tf_verdict_name(it->res->overall));
