@@ -63,7 +63,8 @@ const char *tf_fitb_status_name(tf_fitb_status s)
 static void burst_blank(tf_fit_burst *b)
 {
     b->peak_a = b->fd_hz = b->u_fd_hz = b->alpha_per_s = b->u_alpha_per_s = NANV;
-    b->alpha_raw_per_s = b->w0_rad_s = b->q = b->u_q = b->log_decrement = NANV;
+    b->alpha_raw_per_s = b->u_alpha_raw_per_s = b->w0_rad_s = b->q = b->u_q = NANV;
+    b->log_decrement = NANV;
     b->residual_rms_a = b->resistance_ohm = b->u_resistance_ohm = b->resistance_raw_ohm = NANV;
     b->inductance_h = b->capacitance_f = NANV;
     b->vi_resistance_ohm = b->vi_inductance_h = b->vi_capacitance_f = NANV;
@@ -134,6 +135,7 @@ static void fit_one_burst(const job_ctx *c, tf_dsfit_workspace *ws, size_t k)
     b->alpha_per_s = a;
     b->u_alpha_per_s = fit.u_alpha_per_s;
     b->alpha_raw_per_s = fit.raw_alpha_per_s;
+    b->u_alpha_raw_per_s = fit.raw_u_alpha_per_s;
     b->w0_rad_s = w0;
     b->q = w0 / (2 * a);
     /* dQ/dalpha and dQ/dwd of Q = sqrt(wd^2 + alpha^2) / (2 alpha) */
@@ -426,13 +428,15 @@ static void summarise_ringdown(tf_fit_result *r, const job_ctx *c, tf_fit_burst 
     combine(fb, nb, OFF(alpha_per_s), OFF(u_alpha_per_s), scratch, &r->s_alpha_per_s, &u);
     est_set(&r->decay_per_s, r->s_alpha_per_s.median, u, m);
     tf_fit_spread sp;
-    combine(fb, nb, OFF(alpha_raw_per_s), OFF(u_alpha_per_s), scratch, &sp, &u);
+    combine(fb, nb, OFF(alpha_raw_per_s), OFF(u_alpha_raw_per_s), scratch, &sp, &u);
     est_set(&r->decay_raw_per_s, sp.median, u, "ring-down");
     combine(fb, nb, OFF(w0_rad_s), OFF(u_fd_hz), scratch, &sp, &u);
     est_set(&r->undamped_frequency_hz, sp.median / (2 * M_PI), u, m);
     combine(fb, nb, OFF(q), OFF(u_q), scratch, &r->s_q, &u);
     est_set(&r->q, r->s_q.median, u, m);
     combine(fb, nb, OFF(log_decrement), (size_t)-1, scratch, &sp, &u);
+    if (!isfinite(u)) /* one burst: delta = 2 pi alpha / wd, relative u of alpha */
+        u = fabs(sp.median) * r->decay_per_s.u / r->decay_per_s.value;
     est_set(&r->log_decrement, sp.median, u, m);
     est_none(&r->ringdown_r);
     est_none(&r->ringdown_l);
@@ -539,6 +543,7 @@ tf_status tf_fit_run(const tf_capture *cap, const tf_roles *roles, const tf_segm
         case TF_FITB_OK: r->bursts_fitted++; break;
         case TF_FITB_CLIPPED: r->bursts_clipped++; break;
         case TF_FITB_ANOMALOUS: r->bursts_anomalous++; break;
+        case TF_FITB_SHORT: r->bursts_short++; r->bursts_failed++; break;
         default: r->bursts_failed++; break;
         }
     }
@@ -771,12 +776,13 @@ json_t *tf_fit_to_json(const tf_fit_result *r)
     json_object_set_new(o, "methods", m);
     json_object_set_new(o, "skew_s", json_pack("{s:o, s:o, s:s}", "value", num(r->skew_s), "u",
                                                num(r->skew_u_s), "method", r->skew_method));
-    json_object_set_new(o, "bursts", json_pack("{s:I, s:I, s:I, s:I, s:I}", "fitted",
+    json_object_set_new(o, "bursts", json_pack("{s:I, s:I, s:I, s:I, s:I, s:I}", "fitted",
                                                (json_int_t)r->bursts_fitted, "excluded",
                                                (json_int_t)r->bursts_excluded, "clipped",
                                                (json_int_t)r->bursts_clipped, "anomalous",
                                                (json_int_t)r->bursts_anomalous, "failed",
-                                               (json_int_t)r->bursts_failed));
+                                               (json_int_t)r->bursts_failed, "short",
+                                               (json_int_t)r->bursts_short));
     json_object_set_new(o, "spread", json_pack("{s:o, s:o, s:o, s:o}", "damped_frequency_hz",
                                                spread_json(&r->s_fd_hz), "decay_per_s",
                                                spread_json(&r->s_alpha_per_s), "q",

@@ -650,11 +650,46 @@ static void test_fit_simulator_overlapping(void **state)
     free(d);
 }
 
+/* Inputs that are not bursts fail cleanly (an error or a finite result), never hang. */
+static void test_fit_dsfit_garbage(void **state)
+{
+    (void)state;
+    const size_t n = 2000;
+    float *x = malloc(n * sizeof *x);
+    tf_dsfit_workspace *w = tf_dsfit_workspace_create();
+    tf_dsfit f;
+    tf_error e;
+    tf_dsfit_options drops = {.drop_step_v = 2.7, .drop_c_f = 2.2e-6};
+    for (int kind = 0; kind < 6; kind++) {
+        for (size_t k = 0; k < n; k++) {
+            switch (kind) {
+            case 0: x[k] = 5.0f; break;                                  /* constant */
+            case 1: x[k] = k == 700 ? 100.0f : 0.0f; break;              /* impulse */
+            case 2: x[k] = (float)((k * 7919 % 1000) / 500.0 - 1.0); break; /* noise-like */
+            case 3: x[k] = (float)(1e-3 * (double)k); break;              /* ramp */
+            case 4: x[k] = (k % 2) ? 1.0f : -1.0f; break;                 /* Nyquist */
+            default: x[k] = k == 10 ? NAN : (float)sin(0.01 * (double)k); break;
+            }
+        }
+        for (int d = 0; d < 2; d++) {
+            tf_status st = tf_dsfit_run(w, x, n, 1e-7, d ? &drops : NULL, &f, &e);
+            if (st == TF_OK) {
+                assert_true(isfinite(f.alpha_per_s) && isfinite(f.wd_rad_s));
+            } else {
+                assert_true(e.msg[0] != '\0');
+            }
+        }
+    }
+    tf_dsfit_workspace_destroy(w);
+    free(x);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_fit_dsfit_exact),
         cmocka_unit_test(test_fit_dsfit_errors),
+        cmocka_unit_test(test_fit_dsfit_garbage),
         cmocka_unit_test(test_fit_dsfit_uncertainty),
         cmocka_unit_test(test_fit_q_log_decrement),
         cmocka_unit_test(test_fit_scipy_reference),

@@ -110,7 +110,7 @@ typedef struct tf_fit_burst {
     double peak_a;                     /* largest |i| in the burst */
     double fd_hz, u_fd_hz;
     double alpha_per_s, u_alpha_per_s; /* drop-corrected when drops are modelled */
-    double alpha_raw_per_s;            /* plain damped-sine fit */
+    double alpha_raw_per_s, u_alpha_raw_per_s; /* plain damped-sine fit */
     double w0_rad_s, q, u_q, log_decrement;
     double residual_rms_a;
     double resistance_ohm, u_resistance_ohm; /* 2 alpha L (C or L known) */
@@ -142,6 +142,7 @@ typedef struct tf_fit_result {
     void *detail;                     /* per-burst data, owned (see src/fit.c) */
     /* added by the fitter */
     size_t bursts_clipped, bursts_anomalous, bursts_failed;
+    size_t bursts_short;              /* fragments: one lobe, too few samples (in failed too) */
     tf_estimate decay_raw_per_s;      /* alpha of the plain fit */
     tf_estimate log_decrement;
     /* each method's R, L, C (value NAN when the method did not run) */

@@ -46,9 +46,10 @@ void tf_cli_print_resonance(FILE *out, const tf_capture *cap, const tf_fit_resul
         fputs("Resonance: not available\n", out);
         return;
     }
-    fprintf(out, "Resonance (%zu bursts fitted, %zu excluded: %zu clipped, %zu anomalous, %zu failed):\n",
+    fprintf(out, "Resonance (%zu bursts fitted, %zu excluded: %zu clipped, %zu anomalous, "
+                 "%zu fragments, %zu failed):\n",
             fit->bursts_fitted, fit->bursts_excluded, fit->bursts_clipped, fit->bursts_anomalous,
-            fit->bursts_failed);
+            fit->bursts_short, fit->bursts_failed - fit->bursts_short);
     row(out, "damped frequency fd", &fit->damped_frequency_hz, "Hz");
     row(out, "decay alpha", &fit->decay_per_s, "1/s");
     if (fit->drops_modelled)
