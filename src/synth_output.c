@@ -3,6 +3,7 @@
 
 #include <stdlib.h>
 #include <string.h>
+#include <unistd.h>
 
 #include "synth_write.h"
 
@@ -182,15 +183,22 @@ tf_status tf_synth_write_opts(const tf_design *d, const char *out_path, const ch
     o.csv = NULL;
     if (st == TF_OK)
         st = write_truth_and_sidecar(&o, s, &plan, d, truth_path != NULL, err);
-    /* every output is complete: move them into place, the capture last */
-    if (st == TF_OK && truth_path)
-        st = tf_sw_file_commit(&o.truth, err);
-    if (st == TF_OK && plan.wav)
-        st = tf_sw_file_commit(&o.sidecar, err);
+    /* every output is complete: move them into place, the capture last; should a later
+     * one fail (a file appeared meanwhile), the ones this run just created go again */
+    int truth_done = 0, side_done = 0;
+    if (st == TF_OK && truth_path && (st = tf_sw_file_commit(&o.truth, err)) == TF_OK)
+        truth_done = 1;
+    if (st == TF_OK && plan.wav && (st = tf_sw_file_commit(&o.sidecar, err)) == TF_OK)
+        side_done = 1;
     if (st == TF_OK)
         st = tf_sw_file_commit(&o.data, err);
-    if (st != TF_OK)
+    if (st != TF_OK) {
         outputs_abort(&o);
+        if (!opt->overwrite && truth_done)
+            unlink(o.truth.path);
+        if (!opt->overwrite && side_done)
+            unlink(o.sidecar.path);
+    }
     free(mem);
     tf_synth_destroy(s);
     return st;
