@@ -44,16 +44,11 @@ double seg_lsb(const float *x, size_t n)
     return nz >= 32 && whole >= 0.95 * (double)nz ? lsb : 0;
 }
 
-tf_status seg_find_clipping(const float *x, size_t n, double lsb, const seg_vec *runs,
+tf_status seg_find_clipping(const float *x, float lo, float hi, double lsb, const seg_vec *runs,
                             seg_vec *clips)
 {
     if (!runs->n)
         return TF_OK;
-    float hi = x[0], lo = x[0];
-    for (size_t k = 1; k < n; k++) {
-        hi = x[k] > hi ? x[k] : hi;
-        lo = x[k] < lo ? x[k] : lo;
-    }
     const seg_run *r = runs->data;
     for (size_t j = 0; j < runs->n; j++) {
         float ext = r[j].sign > 0 ? hi : lo;
@@ -375,9 +370,12 @@ tf_status tf_segment_run(const tf_capture *cap, const tf_roles *roles,
     double sigma = tf_stats_noise_sigma(x, n);
     if (!isfinite(sigma) || sigma < 0)
         sigma = seg_noise_sigma(x, n);
-    double peak = 0;
-    for (size_t i = 0; i < n; i++)
-        peak = fabs((double)x[i]) > peak ? fabs((double)x[i]) : peak;
+    float lo = x[0], hi = x[0];
+    for (size_t i = 1; i < n; i++) {
+        lo = x[i] < lo ? x[i] : lo;
+        hi = x[i] > hi ? x[i] : hi;
+    }
+    double peak = fmax(fabs((double)lo), fabs((double)hi));
     double lsb = ch->stats_valid && ch->stats.lsb > 0 ? ch->stats.lsb : seg_lsb(x, n);
     /* floors: a noiseless record still needs a band above rounding and one code step */
     double band = fmax(k * sigma, fmax(lsb, 1e-3 * peak));
@@ -400,7 +398,7 @@ tf_status tf_segment_run(const tf_capture *cap, const tf_roles *roles,
         st = seg_runs_from_excursions(x, n, band, &exc, &runs);
     seg_vec_free(&exc);
     if (st == TF_OK)
-        st = seg_find_clipping(x, n, lsb, &runs, &clips);
+        st = seg_find_clipping(x, lo, hi, lsb, &runs, &clips);
     int ngates = 0;
     if (st == TF_OK)
         st = gate_firings(cap, roles, &fire, &ngates);

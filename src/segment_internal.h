@@ -59,9 +59,10 @@ double seg_noise_sigma(const float *x, size_t n);
  * when most differences are whole multiples of it. */
 double seg_lsb(const float *x, size_t n);
 
-/* Stretches of samples sitting at the channel's extreme value at the top of a run,
- * longer than a quantised (unclipped) peak could stay flat. */
-tf_status seg_find_clipping(const float *x, size_t n, double lsb, const seg_vec *runs,
+/* Stretches of samples sitting at the channel's extreme value (lo, hi: the channel's
+ * minimum and maximum) at the top of a run, longer than a quantised (unclipped) peak
+ * could stay flat. */
+tf_status seg_find_clipping(const float *x, float lo, float hi, double lsb, const seg_vec *runs,
                             seg_vec *clips);
 
 /* Everything the attribution stage needs besides the runs. */

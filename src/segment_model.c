@@ -322,6 +322,9 @@ static int split_at(const float *x, size_t k0, size_t k1, size_t s, double z0, d
 #define CHAIN_MAX 64
 /* samples per piece used by the chain fit (stride chosen to keep about this many) */
 #define SEG_CHAIN_SAMPLES 1000000
+/* a quick fit whose first step moved ts less than this (samples) is done: the next step
+ * would be about its square times the curvature, far below the noise */
+#define SEG_QUICK_ONE_STEP 0.25
 
 /* One pass over the chain's samples: with linear_only the amplitudes alone (for fixed
  * ts, w, a), else the Gauss-Newton step delta = (amplitudes, w, a, ts). Each sample
@@ -367,7 +370,23 @@ static int chain_step(const float *x, size_t k0, size_t k1, size_t stride,
             }
             const double de4 = exp(-a * LN), dc4 = cos(w * LN), ds4 = sin(w * LN);
             size_t k = kf;
-            for (; k + LN - 1 <= kl; k += LN) {
+            /* w and a held: only the amplitude and ts columns are needed */
+            for (; ts_only && k + LN - 1 <= kl; k += LN) {
+                for (int l = 0; l < LN; l++) {
+                    double g = e4[l] * s4[l], v = x[k + (size_t)l], r = v - A * g;
+                    double jt = A * e4[l] * (aw * s4[l] - ww * c4[l]);
+                    sgg[l] += g * g;
+                    sgr[l] += r * g;
+                    sg2[l] += g * jt;
+                    s22[l] += jt * jt;
+                    sr2[l] += r * jt;
+                    double nc = c4[l] * dc4 - s4[l] * ds4;
+                    s4[l] = s4[l] * dc4 + c4[l] * ds4;
+                    c4[l] = nc;
+                    e4[l] *= de4;
+                }
+            }
+            for (; !ts_only && k + LN - 1 <= kl; k += LN) {
                 for (int l = 0; l < LN; l++) {
                     double g = e4[l] * s4[l], v = x[k + (size_t)l], r = v - A * g;
                     double jw = A * e4[l] * t4[l] * c4[l], ja = -A * t4[l] * g,
@@ -510,7 +529,7 @@ int seg_chain_fit(const float *x, size_t k0, size_t k1, const seg_clip *clips, s
         t += dts;
         /* quadratic convergence: from a start within a few samples one step leaves
          * ts within about 1e-3 sample when w and a are held */
-        if (fabs(dts) < 2e-2 && fabs(dw) < 1e-6 * ww)
+        if ((ts_only && fabs(dts) < SEG_QUICK_ONE_STEP) || (fabs(dts) < 2e-2 && fabs(dw) < 1e-6 * ww))
             break;
     }
     if (!(ww > 0) || !isfinite(t))
