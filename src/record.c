@@ -358,8 +358,8 @@ static char *show(const json_t *v)
 static size_t note(json_t *diffs, const char *what, const json_t *a, const json_t *b)
 {
     char *x = show(a), *y = show(b);
-    char line[1024];
-    snprintf(line, sizeof line, "%s: recorded %.400s, now %.400s", what, x, y);
+    char line[2048];
+    snprintf(line, sizeof line, "%.600s: recorded %.600s, now %.600s", what, x, y);
     free(x);
     free(y);
     json_array_append_new(diffs, json_string(line));
@@ -371,17 +371,17 @@ static size_t diff_object(const char *prefix, const json_t *a, const json_t *b, 
     size_t n = 0;
     const char *key;
     json_t *va;
-    char what[256];
+    char what[512];
     json_object_foreach((json_t *)a, key, va) {
         json_t *vb = json_object_get(b, key);
         if (!json_equal(va, vb)) {
-            snprintf(what, sizeof what, "%s %s", prefix, key);
+            snprintf(what, sizeof what, "%.300s %.150s", prefix, key);
             n += note(diffs, what, va, vb);
         }
     }
     json_object_foreach((json_t *)b, key, va) {
         if (!json_object_get(a, key)) {
-            snprintf(what, sizeof what, "%s %s", prefix, key);
+            snprintf(what, sizeof what, "%.300s %.150s", prefix, key);
             n += note(diffs, what, NULL, va);
         }
     }
@@ -392,7 +392,7 @@ static size_t diff_checks(const char *prefix, const json_t *a, const json_t *b, 
 {
     size_t n = 0, k;
     json_t *ca;
-    char what[256];
+    char what[512];
     json_array_foreach(a, k, ca) {
         const char *id = json_string_value(json_object_get(ca, "id"));
         json_t *cb = NULL;
@@ -400,7 +400,7 @@ static size_t diff_checks(const char *prefix, const json_t *a, const json_t *b, 
         json_t *x;
         json_array_foreach(b, j, x) if (id && json_equal(json_object_get(x, "id"),
                                                          json_object_get(ca, "id"))) cb = x;
-        snprintf(what, sizeof what, "%s check %s", prefix, id ? id : "?");
+        snprintf(what, sizeof what, "%.300s check %.100s", prefix, id ? id : "?");
         if (!cb) {
             n += note(diffs, what, ca, NULL);
             continue;
@@ -408,7 +408,7 @@ static size_t diff_checks(const char *prefix, const json_t *a, const json_t *b, 
         n += diff_object(what, ca, cb, diffs);
     }
     if (json_array_size(a) != json_array_size(b)) {
-        snprintf(what, sizeof what, "%s number of checks", prefix);
+        snprintf(what, sizeof what, "%.300s number of checks", prefix);
         json_t *na = json_integer((json_int_t)json_array_size(a));
         json_t *nb = json_integer((json_int_t)json_array_size(b));
         n += note(diffs, what, na, nb);
@@ -435,8 +435,8 @@ size_t tf_record_diff(const json_t *rec, const json_t *now, json_t *diffs)
     for (size_t k = 0; k < json_array_size(ca); k++) {
         const json_t *a = json_array_get(ca, k), *b = json_array_get(cb, k);
         char prefix[256];
-        snprintf(prefix, sizeof prefix, "capture %zu (%.200s):", k + 1,
-                 json_string_value(json_object_get(a, "path")) ? json_string_value(json_object_get(a, "path")) : "?");
+        const char *path = json_string_value(json_object_get(a, "path"));
+        snprintf(prefix, sizeof prefix, "capture %zu (%.200s):", k + 1, path ? path : "?");
         char what[300];
         static const char *const keys[] = {"sha256", "bytes", "verdict"};
         for (size_t j = 0; j < 3; j++)
