@@ -346,6 +346,57 @@ void seg_refine_boundaries(const seg_input *in, seg_vec *runs, tf_topology topo)
     free(zs);
 }
 
+typedef struct scan_job {
+    const float *x;
+    size_t n, offset;
+    double band;
+    seg_vec exc;
+    tf_status st;
+} scan_job;
+
+static void *scan_worker(void *arg)
+{
+    scan_job *j = arg;
+    j->st = seg_scan(j->x + j->offset, j->n, j->band, &j->exc);
+    return NULL;
+}
+
+/* The scan on two threads for long records: cut at a sample inside the band (no
+ * excursion spans it), scan both halves, join the lists. */
+static tf_status scan_parallel(const float *x, size_t n, double band, seg_vec *exc)
+{
+    size_t mid = n / 2;
+    while (mid < n && fabsf(x[mid]) > (float)band)
+        mid++;
+    if (n < SEG_THREAD_SAMPLES || mid >= n - 1)
+        return seg_scan(x, n, band, exc);
+    scan_job hi = {x, n - mid, mid, band, {0}, TF_OK};
+    seg_vec_init(&hi.exc, sizeof(seg_exc));
+    pthread_t th;
+    int threaded = pthread_create(&th, NULL, scan_worker, &hi) == 0;
+    tf_status st = seg_scan(x, mid, band, exc);
+    if (threaded)
+        pthread_join(th, NULL);
+    else
+        scan_worker(&hi);
+    if (st == TF_OK)
+        st = hi.st;
+    const seg_exc *e = hi.exc.data;
+    for (size_t i = 0; i < hi.exc.n && st == TF_OK; i++) {
+        seg_exc *d = seg_vec_push(exc);
+        if (!d) {
+            st = TF_ERR_NOMEM;
+            break;
+        }
+        *d = e[i];
+        d->i0 += mid;
+        d->i1 += mid;
+        d->ipk += mid;
+    }
+    seg_vec_free(&hi.exc);
+    return st;
+}
+
 tf_status tf_segment_run(const tf_capture *cap, const tf_roles *roles,
                          const tf_segment_options *opt, tf_segment_result **out, tf_error *err)
 {
@@ -393,7 +444,7 @@ tf_status tf_segment_run(const tf_capture *cap, const tf_roles *roles,
     seg_vec_init(&runs, sizeof(seg_run));
     seg_vec_init(&clips, sizeof(seg_clip));
     seg_vec_init(&fire, 2 * sizeof(double));
-    tf_status st = seg_scan(x, n, band, &exc);
+    tf_status st = scan_parallel(x, n, band, &exc);
     if (st == TF_OK)
         st = seg_runs_from_excursions(x, n, band, &exc, &runs);
     seg_vec_free(&exc);

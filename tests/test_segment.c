@@ -497,6 +497,29 @@ static void test_segment_offset_reported(void **state)
     segw_free(&w);
 }
 
+/* A record long enough for the two-thread scan and burst fits (>= 2e6 samples): every
+ * interval still found, attributed and placed within 0.5 sample. */
+static void test_segment_long_record_threads(void **state)
+{
+    (void)state;
+    segw_cfg c;
+    segw_defaults(&c);
+    c.snr_db = 45;
+    c.duration_s = 0.23; /* 2.3e6 samples */
+    segw_out w;
+    assert_int_equal(segw_make(&c, &w), 0);
+    tf_segment_result *r = segment(&w, TF_TOPO_UNKNOWN);
+    assert_int_equal(r->mode, TF_MODE_NON_OVERLAPPING);
+    match_stats m = match(&w, r, 2e-6);
+    assert_true(m.truth > 2500);
+    assert_int_equal(m.found, m.truth);
+    assert_int_equal(m.attributed, m.truth);
+    assert_true(m.max_err_s <= 0.5 * w.cap->dt_s);
+    assert_int_equal(r->nanomalies, 0);
+    tf_segment_free(r);
+    segw_free(&w);
+}
+
 static void test_segment_errors(void **state)
 {
     (void)state;
@@ -938,6 +961,7 @@ int main(void)
         cmocka_unit_test(test_segment_commutation_failure),
         cmocka_unit_test(test_segment_missing_firing),
         cmocka_unit_test(test_segment_offset_reported),
+        cmocka_unit_test(test_segment_long_record_threads),
         cmocka_unit_test(test_segment_errors),
         cmocka_unit_test(test_segment_json_keys),
         cmocka_unit_test(test_segment_sim_half_bridge_current_only),
