@@ -207,8 +207,6 @@ static int refine_chain(const seg_input *in, seg_run *r, size_t j, size_t q, dou
     return 1;
 }
 
-/* Records at least this long fit their chains on two threads. */
-#define SEG_THREAD_SAMPLES 2000000
 /* A full chain fit (w and decay too) at least every this many bursts. */
 #define SEG_FULL_EVERY 8u
 

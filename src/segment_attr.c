@@ -2,6 +2,7 @@
 #include "segment_internal.h"
 
 #include <math.h>
+#include <pthread.h>
 #include <stdarg.h>
 #include <stdint.h>
 #include <stdio.h>
@@ -281,6 +282,29 @@ static void lobe_stats(const seg_input *in, tf_lobe *L, double t0, double t1)
     for (size_t c = 0; c < in->nclips; c++)
         if (in->clips[c].i0 < i1 && in->clips[c].i1 >= i0)
             L->clipped = 1;
+}
+
+typedef struct stats_job {
+    const seg_input *in;
+    tf_lobe *L;
+    const lobe_rec *rec;
+    size_t from, to;
+} stats_job;
+
+static void *stats_worker(void *arg)
+{
+    stats_job *j = arg;
+    for (size_t q = j->from; q < j->to; q++) {
+        tf_lobe *l = &j->L[q];
+        const lobe_rec *c = &j->rec[q];
+        l->sign = c->sign;
+        lobe_stats(j->in, l, c->t0, c->t1);
+        l->start_model = c->m0;
+        l->end_model = c->m1;
+        l->end_by_firing = c->k1 == SEG_B_FIRING;
+        l->partial = c->k0 == SEG_B_EDGE || c->k1 == SEG_B_EDGE;
+    }
+    return NULL;
 }
 
 /* ---- anomalies ------------------------------------------------------------------ */
@@ -773,15 +797,15 @@ tf_status seg_attribute(const seg_input *in, seg_vec *runs, tf_topology topo,
         st = TF_ERR_NOMEM;
     if (st == TF_OK) {
         r->nlobes = nl;
-        for (size_t j = 0; j < nl; j++) {
-            tf_lobe *l = &r->lobes[j];
-            l->sign = rec[j].sign;
-            lobe_stats(in, l, rec[j].t0, rec[j].t1);
-            l->start_model = rec[j].m0;
-            l->end_model = rec[j].m1;
-            l->end_by_firing = rec[j].k1 == SEG_B_FIRING;
-            l->partial = rec[j].k0 == SEG_B_EDGE || rec[j].k1 == SEG_B_EDGE;
-        }
+        stats_job jobs[2] = {{in, r->lobes, rec, 0, nl / 2}, {in, r->lobes, rec, nl / 2, nl}};
+        pthread_t th;
+        int threaded = in->n >= SEG_THREAD_SAMPLES && nl >= 8 &&
+                       pthread_create(&th, NULL, stats_worker, &jobs[1]) == 0;
+        stats_worker(&jobs[0]);
+        if (threaded)
+            pthread_join(th, NULL);
+        else
+            stats_worker(&jobs[1]);
         int inverted = 0;
         st = attribute_devices(in, topo, r->lobes, rec, nl, &an, &inverted);
         size_t l = strlen(r->topology_evidence);

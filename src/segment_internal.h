@@ -8,6 +8,9 @@
 /* Default hysteresis band in noise sigmas (docs/segmenter.md explains the choice). */
 #define SEG_BAND_K 4.0
 
+/* Records at least this long are scanned, fitted and measured on two threads. */
+#define SEG_THREAD_SAMPLES 2000000
+
 /* A maximal stretch of samples outside the band on one side: [i0, i1] inclusive. */
 typedef struct seg_exc {
     size_t i0, i1, ipk;
