@@ -290,6 +290,65 @@ static void test_track_cli_files(void **state)
     assert_true(st0.st_size == st1.st_size && st0.st_mtime == st1.st_mtime);
 }
 
+/* --baseline: the empty coil's capture gives R_coil, then R_w and the efficiency. */
+static void test_track_cli_baseline(void **state)
+{
+    (void)state;
+    const char *design = tf_test_tmpfile("b_heat.ini"), *empty = tf_test_tmpfile("b_empty.ini");
+    /* the design says 80 mohm: only the baseline can give 60 mohm */
+    char *htext = strdup(heating_design);
+    char *cr = strstr(htext, "coil_resistance = 60 mohm");
+    memcpy(cr, "coil_resistance = 80 mohm", strlen("coil_resistance = 80 mohm"));
+    assert_int_equal(tf_test_write(design, htext), 0);
+    free(htext);
+    /* the empty coil: the same stage with 60 mohm and no schedule (an invented coil) */
+    char *text = strdup(heating_design);
+    char *sched = strstr(text, "[schedule]");
+    *sched = '\0';
+    char *r = strstr(text, "resistance = 0.45 ohm");
+    memcpy(r, "resistance = 0.06 ohm", strlen("resistance = 0.06 ohm"));
+    assert_int_equal(tf_test_write(empty, text), 0);
+    free(text);
+    tf_design *d = malloc(sizeof *d);
+    tf_error e;
+    const char *capf = tf_test_tmpfile("b_heat.csv"), *basef = tf_test_tmpfile("b_empty.csv");
+    tf_design_init(d);
+    assert_int_equal(tf_design_load(empty, d, &e), TF_OK);
+    d->duration_s = 3e-3;
+    assert_int_equal(tf_synth_write(d, basef, NULL, 0, &e), TF_OK);
+    tf_design_init(d);
+    assert_int_equal(tf_design_load(design, d, &e), TF_OK);
+    d->duration_s = 3e-3;
+    assert_int_equal(tf_synth_write(d, capf, NULL, 0, &e), TF_OK);
+    free(d);
+    const char *json = tf_test_tmpfile("b_track.json");
+    assert_int_equal(tf_test_system("'%s' track '%s' --design '%s' --baseline '%s' --json > '%s'",
+                                    tf_test_cli(), capf, design, basef, json), 0);
+    json_error_t je;
+    json_t *j = json_load_file(json, 0, &je);
+    assert_non_null(j);
+    const double rc = json_number_value(json_object_get(j, "r_coil_ohm"));
+    /* source: the simulated empty coil's resistance (60 mohm; the design's key says
+     * 80 mohm: the baseline wins) */
+    assert_true(tf_test_reldiff(rc, 0.06) < 0.05);
+    json_t *rows = json_object_get(j, "rows");
+    size_t used = 0;
+    for (size_t k = 0; k < json_array_size(rows); k++) {
+        json_t *w = json_array_get(rows, k);
+        if (!json_is_true(json_object_get(w, "used")))
+            continue;
+        const double re = json_number_value(json_object_get(w, "r_eff_ohm"));
+        const double rw = json_number_value(json_object_get(w, "r_w_ohm"));
+        const double ef = json_number_value(json_object_get(w, "efficiency"));
+        /* DOMAIN.md section 6: R_w = R_eff - R_coil, efficiency R_w / R_eff */
+        assert_true(fabs(rw - (re - rc)) < 1e-9 * re);
+        assert_true(fabs(ef - rw / re) < 1e-9);
+        used++;
+    }
+    assert_true(used > 20);
+    json_decref(j);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -298,6 +357,7 @@ int main(void)
         cmocka_unit_test(test_track_heating_run),
         cmocka_unit_test(test_track_needs_resistance),
         cmocka_unit_test(test_track_cli_files),
+        cmocka_unit_test(test_track_cli_baseline),
     };
     if (getenv("TF_TEST_FILTER")) /* run one case by name, e.g. for timing */
         cmocka_set_test_filter(getenv("TF_TEST_FILTER"));

@@ -280,8 +280,8 @@ static int write_svg(FILE *f, const void *ctx)
                "<svg xmlns='http://www.w3.org/2000/svg' width='%d' height='%d' viewBox='0 0 %d %d' "
                "font-family='sans-serif'>\n<rect width='100%%' height='100%%' fill='white'/>\n",
             SVG_W, SVG_H, SVG_W, SVG_H);
-    fprintf(f, "<text x='%d' y='20' font-size='14'>tankfit track: %zu bursts, %zu changes (dashed)</text>\n",
-            PL, t->rows_ok, t->nchanges);
+    fprintf(f, "<text x='%d' y='20' font-size='14'>tankfit track: %zu bursts, %zu change%s (dashed)</text>\n",
+            PL, t->rows_ok, t->nchanges, t->nchanges == 1 ? "" : "s");
     svg_panel(f, t, PT, 0, t0, t1);
     svg_panel(f, t, PT + PH + GAP, 1, t0, t1);
     fprintf(f, "<text x='%d' y='%d' text-anchor='middle' font-size='12'>time</text>\n</svg>\n",
