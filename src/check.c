@@ -222,9 +222,9 @@ static int need_limit(tf_check *c, double limit, const char *key)
 /* Quality gates shared by the timing checks. */
 static int gate_timing(tf_check *c, const tf_check_quality *q)
 {
-    if (q->clipped_current) {
-        say(c, TF_VERDICT_NOT_EVALUATED, "the current channel is clipped; its zeros and "
-            "lobes are not trusted");
+    if (q->clipped_zeros) {
+        say(c, TF_VERDICT_NOT_EVALUATED, "the current channel is clipped at %.3g A, close to "
+            "zero: its zero crossings are not trusted", q->current_clip_level_a);
         return 0;
     }
     if (isfinite(q->samples_per_period) && q->samples_per_period < TF_CHECK_MIN_SAMPLES_PER_PERIOD) {
@@ -651,6 +651,26 @@ static void quality(tf_check_result *r, const tf_check_input *in)
     min_turnoff(a->seg, &q->cycles);
     q->clipped_current = channel_clipped(in->cap, a->roles.current) ||
                          (a->seg && a->seg->clipped_stretches > 0);
+    q->current_clip_level_a = NAN;
+    if (q->clipped_current && a->roles.current >= 0) {
+        const tf_channel *ch = &in->cap->ch[a->roles.current];
+        tf_channel_stats st;
+        if (ch->stats_valid)
+            st = ch->stats;
+        else
+            tf_stats_compute(ch->samples, in->cap->n, &st);
+        double lvl = INFINITY;
+        if (st.clipped_high)
+            lvl = fmin(lvl, fabs(st.max));
+        if (st.clipped_low)
+            lvl = fmin(lvl, fabs(st.min));
+        if (!st.clipped_high && !st.clipped_low) /* only the segmenter saw it */
+            lvl = fmin(fabs(st.max), fabs(st.min));
+        q->current_clip_level_a = lvl;
+        double band = a->seg ? a->seg->band_a : NAN;
+        q->clipped_zeros = !(isfinite(band) && band > 0) ||
+                           lvl < TF_CHECK_CLIP_BAND_FACTOR * band;
+    }
     q->clipped_voltage = channel_clipped(in->cap, a->roles.voltage);
     q->clipped_cap_voltage = channel_clipped(in->cap, a->roles.cap_voltage);
     q->clipped_switch_voltage = channel_clipped(in->cap, a->roles.switch_voltage);

@@ -244,15 +244,26 @@ static void test_check_turnoff_margin(void **state)
     f->seg.ncycles = 2;
     assert_int_equal(verdict(f, "turnoff-margin"), TF_VERDICT_NOT_EVALUATED);
     f->seg.ncycles = 8;
-    /* not evaluated: a clipped current */
+    /* clipped at the 100 A peaks, far from the 0.5 A band: the zeros still count,
+     * but the peak check is not evaluated */
+    f->seg.band_a = 0.5;
     f->cap->ch[0].stats.clipped_samples = 12;
+    f->cap->ch[0].stats.clipped_high = 1;
     r = run(f, 1);
-    assert_int_equal(find(r, "turnoff-margin")->verdict, TF_VERDICT_NOT_EVALUATED);
-    assert_non_null(strstr(find(r, "turnoff-margin")->reason, "clipped"));
+    assert_int_equal(find(r, "turnoff-margin")->verdict, TF_VERDICT_PASS);
+    assert_int_equal(find(r, "peak-current")->verdict, TF_VERDICT_NOT_EVALUATED);
     assert_int_equal(r->overall, TF_VERDICT_NOT_EVALUATED);
     assert_int_equal(tf_verdict_exit_code(r->overall), 2);
     tf_check_free(r);
+    /* clipped at 3 A, within 10 bands of zero: not evaluated */
+    f->cap->ch[0].stats.max = 3.0;
+    r = run(f, 1);
+    assert_int_equal(find(r, "turnoff-margin")->verdict, TF_VERDICT_NOT_EVALUATED);
+    assert_non_null(strstr(find(r, "turnoff-margin")->reason, "clipped"));
+    tf_check_free(r);
     f->cap->ch[0].stats.clipped_samples = 0;
+    f->cap->ch[0].stats.clipped_high = 0;
+    f->cap->ch[0].stats.max = 100.0;
     /* not evaluated: 10 samples per resonant period (dt 6 us at 16 kHz) */
     f->cap->dt_s = 6e-6;
     assert_int_equal(verdict(f, "turnoff-margin"), TF_VERDICT_NOT_EVALUATED);
@@ -578,7 +589,7 @@ static void test_check_sim_tq_raised(void **state)
 }
 
 /* A current probe range of 140 A clips the 164 A peaks: the peak and the fit checks
- * become not-evaluated and the run is not a pass. */
+ * become not-evaluated and the run is not a pass; the timing checks stay. */
 static void test_check_sim_clipped(void **state)
 {
     (void)state;
@@ -597,6 +608,9 @@ static void test_check_sim_clipped(void **state)
     }
     assert_true(s.r->quality.clipped_current);
     assert_int_not_equal(s.r->overall, TF_VERDICT_PASS);
+    /* clipped at 140 A, far from zero: the turn-off times still come from true zeros */
+    assert_false(s.r->quality.clipped_zeros);
+    assert_int_equal(find(s.r, "turnoff-margin")->verdict, TF_VERDICT_PASS);
     sim_free(&s);
     free(clip);
     free(d);

@@ -78,7 +78,15 @@ typedef struct tf_check_quality {
     double samples_per_period;   /* samples per damped resonant period (NAN: unknown) */
     size_t cycles;               /* complete firing cycles with a turn-off time */
     int clipped_current, clipped_voltage, clipped_cap_voltage, clipped_switch_voltage;
+    double current_clip_level_a;  /* smallest |level| the current is clipped at (NAN: none) */
+    int clipped_zeros;            /* the clipping reaches within TF_CHECK_CLIP_BAND_FACTOR
+                                     hysteresis bands of zero: current zeros not trusted */
 } tf_check_quality;
+
+/* Timing checks use the current's zeros, which clipping at the peaks does not move:
+ * they stay evaluated unless the clip level is within this many segmenter
+ * hysteresis bands of zero (tankfit's rule). */
+#define TF_CHECK_CLIP_BAND_FACTOR 10.0
 
 /* Result of tf_check_evaluate. Plain struct, owned by the caller (tf_check_free). */
 typedef struct tf_check_result {
