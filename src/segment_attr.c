@@ -575,7 +575,7 @@ static double reverse_until(const float *v, double z, size_t lim, double h)
 }
 
 static tf_status build_cycles(const seg_input *in, tf_lobe *L, const lobe_rec *rec, size_t nl,
-                              double wsplit, int ring, seg_vec *cyc)
+                              double wsplit, int ring, seg_vec *cyc, size_t *unresolved)
 {
     const double dt = in->cap->dt_s;
     const float *vsw = in->roles->switch_voltage >= 0
@@ -621,11 +621,21 @@ static tf_status build_cycles(const seg_input *in, tf_lobe *L, const lobe_rec *r
                 c->dead_s = fmax(0, L[j + 2].start_s - d->end_s);
             }
             if (vsw && (L[j].device == TF_DEV_T1 || L[j].device == TF_DEV_T1T2)) {
-                /* the switch voltage is T1's: look up to a little past the diode's end */
+                /* the switch voltage is T1's; it must show the reverse bias (about one
+                 * diode drop) clearly during the first half of the diode interval, else
+                 * its resolution or noise hides it and nothing is measured */
+                size_t a0 = (size_t)ceil(rec[j + 1].t0), a1 = (size_t)ceil(0.5 * (rec[j + 1].t0 + rec[j + 1].t1));
+                double sum = 0;
+                for (size_t k = a0; k < a1 && k < in->n; k++)
+                    sum += vsw[k];
+                double mean = a1 > a0 ? sum / (double)(a1 - a0) : 0;
                 size_t lim = (size_t)ceil(rec[j + 1].t1) + 8;
-                double tr = reverse_until(vsw, rec[j].t1, lim < in->n ? lim : in->n, hsw);
+                double tr = mean < -hsw ? reverse_until(vsw, rec[j].t1, lim < in->n ? lim : in->n, hsw)
+                                        : NAN;
                 if (isfinite(tr))
                     c->reverse_bias_s = (tr - rec[j].t1) * dt;
+                else if (!(mean < -hsw))
+                    (*unresolved)++;
             }
         }
         for (size_t q = j + 1; q < nl; q++)
@@ -823,7 +833,8 @@ tf_status seg_attribute(const seg_input *in, seg_vec *runs, tf_topology topo,
     if (st == TF_OK)
         st = rest_level(in, rr, runs->n, &an);
     if (st == TF_OK)
-        st = build_cycles(in, r->lobes, rec, nl, wsplit, topo == TF_TOPO_RING_DOWN, &cyc);
+        st = build_cycles(in, r->lobes, rec, nl, wsplit, topo == TF_TOPO_RING_DOWN, &cyc,
+                          &r->reverse_bias_unresolved);
     if (st == TF_OK) {
         r->cycles = cyc.data;
         r->ncycles = cyc.n;

@@ -73,5 +73,7 @@ json_t *tf_segment_to_json(const tf_segment_result *r)
     json_object_set_new(o, "anomalies", an);
     json_object_set_new(o, "firings_s", fire);
     json_object_set_new(o, "clipped_stretches", json_integer((json_int_t)r->clipped_stretches));
+    json_object_set_new(o, "reverse_bias_unresolved",
+                        json_integer((json_int_t)r->reverse_bias_unresolved));
     return o;
 }

@@ -97,6 +97,8 @@ typedef struct tf_segment_result {
     double damped_frequency_hz;   /* rough fd from the lobes (pi / lobe duration, or the
                                      overlapping split model); NAN when unknown */
     size_t clipped_stretches;     /* clipped stretches of the current found */
+    size_t reverse_bias_unresolved; /* T1 cycles whose switch voltage was too coarse or
+                                       noisy to show the reverse bias (then NAN) */
 } tf_segment_result;
 
 /* Defaults: topology inferred, band of 4 noise sigmas. */

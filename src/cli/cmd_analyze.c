@@ -208,6 +208,9 @@ static void print_turnoff(FILE *out, const tf_segment_result *s, const tf_design
     } else {
         fputs("  t_q not known: give a design file with [switch] turnoff_time\n", out);
     }
+    if (s->reverse_bias_unresolved)
+        fprintf(out, "  switch voltage: too coarse or noisy to show T1's reverse bias in %zu "
+                "cycles (give it a smaller range or more bits)\n", s->reverse_bias_unresolved);
     if (!s->reverse_bias_s.count)
         return;
     /* the switch voltage shows how long T1 really stays reverse-biased: a stray
