@@ -414,6 +414,42 @@ static int default_threads(void)
     return n < 1 ? 1 : (n > 16 ? 16 : (int)n);
 }
 
+int tf_fit_threads(int threads) { return threads > 0 ? (threads > 16 ? 16 : threads) : default_threads(); }
+
+typedef struct pfor {
+    size_t n;
+    atomic_size_t next;
+    void (*fn)(void *ctx, size_t k);
+    void *ctx;
+} pfor;
+
+static void *pfor_worker(void *arg)
+{
+    pfor *p = arg;
+    for (size_t k; (k = atomic_fetch_add(&p->next, 1)) < p->n;)
+        p->fn(p->ctx, k);
+    return NULL;
+}
+
+void tf_fit_parallel_for(size_t n, int threads, void (*fn)(void *ctx, size_t k), void *ctx)
+{
+    pfor p;
+    p.n = n;
+    atomic_init(&p.next, 0);
+    p.fn = fn;
+    p.ctx = ctx;
+    pthread_t th[16];
+    int nt = threads > 16 ? 16 : threads, started = 0;
+    if ((size_t)nt > n / 16 + 1)
+        nt = (int)(n / 16 + 1);
+    for (int t = 1; t < nt; t++)
+        if (pthread_create(&th[started], NULL, pfor_worker, &p) == 0)
+            started++;
+    pfor_worker(&p);
+    for (int t = 0; t < started; t++)
+        pthread_join(th[t], NULL);
+}
+
 static tf_status run_vi_power(const tf_capture *cap, const tf_roles *roles,
                               const tf_segment_result *seg, const tf_fit_options *opt,
                               tf_fit_result *r, tf_fit_burst *fb, double *scratch, tf_error *err);
@@ -652,7 +688,8 @@ static tf_status run_vi_power(const tf_capture *cap, const tf_roles *roles,
     tf_status st = TF_OK;
     if (nw) {
         st = tf_vi_identify(v, i, n, cap->dt_s, win, nw, opt->skew_set, opt->skew_s,
-                            opt->skew_search_s, &vi, pr, pr + nb + 1, pr + 2 * (nb + 1), err);
+                            opt->skew_search_s, tf_fit_threads(opt->threads), &vi, pr,
+                            pr + nb + 1, pr + 2 * (nb + 1), err);
         if (st == TF_OK && vi.valid) {
             est_set(&r->vi_r, vi.r_ohm, vi.u_r_ohm, "v-i");
             est_set(&r->vi_l, vi.l_h, vi.u_l_h, "v-i");

@@ -8,6 +8,13 @@
 /* Turn GSL's abort-on-error handler off once per process (the library never exits). */
 void tf_fit_gsl_quiet(void);
 
+/* Run fn(ctx, k) for k in [0, n) on up to `threads` threads (the caller's included);
+ * fn must only write to its own k's outputs. */
+void tf_fit_parallel_for(size_t n, int threads, void (*fn)(void *ctx, size_t k), void *ctx);
+
+/* Threads for the fitter: threads > 0 as given, else one per online core (<= 16). */
+int tf_fit_threads(int threads);
+
 /* Median of x[0..n-1] (x is reordered). NAN when n == 0. */
 double tf_fit_median(double *x, size_t n);
 
@@ -33,8 +40,8 @@ typedef struct tf_window { size_t i0, i1; size_t burst; } tf_window;
  * (nwin each, may be NULL) receive each window's R, L, C. */
 tf_status tf_vi_identify(const float *v, const float *i, size_t n, double dt_s,
                          const tf_window *win, size_t nwin, int skew_set, double skew_s,
-                         double search_s, tf_vi_result *out, double *per_r, double *per_l,
-                         double *per_c, tf_error *err);
+                         double search_s, int threads, tf_vi_result *out, double *per_r,
+                         double *per_l, double *per_c, tf_error *err);
 
 /* Power method R = mean(v i) / mean(i^2) over [i0, i1) with v delayed back by
  * skew_s; u from the spread over the given period boundaries (nb indices,

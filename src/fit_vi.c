@@ -89,6 +89,8 @@ static int window_ls(const float *v, const float *i, size_t n, double dt, const 
         return -1;
     for (int r = 0; r < NPAR; r++)
         theta[r] = b[r] * sc[r];
+    if (!rss && !cov)
+        return 0;
     /* second pass for the residual: no cancellation */
     double s = 0;
     integ s1 = {0};
@@ -99,7 +101,8 @@ static int window_ls(const float *v, const float *i, size_t n, double dt, const 
                                   theta[3] * s1.q3 + theta[4] * t + theta[5]);
         s += e * e;
     }
-    *rss = s;
+    if (rss)
+        *rss = s;
     if (cov) {
         const size_t m = w->i1 - w->i0;
         const double s2 = m > NPAR ? s / (double)(m - NPAR) : NAN;
@@ -129,29 +132,52 @@ static double parabolic_min(const double *y, size_t ny, size_t *imin)
     return (double)m + 0.5 * (y[m - 1] - y[m + 1]) / den;
 }
 
-/* Residual curves (total and per group) over the grid tau0 + k step, k < ng. */
+/* Residual curves (total and per group) over the grid tau0 + k step, k < ng; the grid
+ * points are independent and run on the fitter's threads. */
+typedef struct curve_job {
+    const float *v, *i;
+    size_t n;
+    double dt;
+    const tf_window *win;
+    const size_t *sub;
+    size_t nsub, ng, ngrp;
+    double tau0, step;
+    double *tot, *grp;
+} curve_job;
+
+static void curve_one(void *ctx, size_t g)
+{
+    const curve_job *j = ctx;
+    j->tot[g] = 0;
+    for (size_t q = 0; q < j->ngrp; q++)
+        j->grp[q * j->ng + g] = 0;
+    for (size_t s = 0; s < j->nsub; s++) {
+        double th[NPAR], rss;
+        if (window_ls(j->v, j->i, j->n, j->dt, &j->win[j->sub[s]], j->tau0 + (double)g * j->step,
+                      th, &rss, NULL) != 0) {
+            j->tot[g] = NAN;
+            return;
+        }
+        j->tot[g] += rss;
+        j->grp[(s % j->ngrp) * j->ng + g] += rss;
+    }
+}
+
 static int rss_curves(const float *v, const float *i, size_t n, double dt, const tf_window *win,
                       const size_t *sub, size_t nsub, double tau0, double step, size_t ng,
-                      double *tot, double *grp, size_t ngrp)
+                      double *tot, double *grp, size_t ngrp, int threads)
 {
-    for (size_t g = 0; g < ng; g++) {
-        tot[g] = 0;
-        for (size_t q = 0; q < ngrp; q++)
-            grp[q * ng + g] = 0;
-        for (size_t s = 0; s < nsub; s++) {
-            double th[NPAR], rss;
-            if (window_ls(v, i, n, dt, &win[sub[s]], tau0 + (double)g * step, th, &rss, NULL) != 0)
-                return -1;
-            tot[g] += rss;
-            grp[(s % ngrp) * ng + g] += rss;
-        }
-    }
+    curve_job j = {v, i, n, dt, win, sub, nsub, ng, ngrp, tau0, step, tot, grp};
+    tf_fit_parallel_for(ng, threads, curve_one, &j);
+    for (size_t g = 0; g < ng; g++)
+        if (!isfinite(tot[g]))
+            return -1;
     return 0;
 }
 
 static int estimate_skew(const float *v, const float *i, size_t n, double dt,
-                         const tf_window *win, size_t nwin, double search_s, double *skew,
-                         double *u_skew)
+                         const tf_window *win, size_t nwin, double search_s, int threads,
+                         double *skew, double *u_skew)
 {
     size_t sub[SKEW_WINDOWS], nsub = nwin < SKEW_WINDOWS ? nwin : SKEW_WINDOWS;
     for (size_t s = 0; s < nsub; s++)
@@ -169,14 +195,14 @@ static int estimate_skew(const float *v, const float *i, size_t n, double dt,
         return -1;
     double *grp = tot + ng, *ftot = grp + ng * ngrp, *fgrp = ftot + nf;
     if (rss_curves(v, i, n, dt, win, sub, nsub, -(double)(half - half % 2) * dt, 2 * dt, ng, tot,
-                   grp, ngrp) != 0) {
+                   grp, ngrp, threads) != 0) {
         free(tot);
         return -1;
     }
     size_t im;
     parabolic_min(tot, ng, &im);
     const double f0 = (-(double)(half - half % 2) + 2.0 * (double)im) * dt - 2 * dt, fs = dt / 4.0;
-    if (rss_curves(v, i, n, dt, win, sub, nsub, f0, fs, nf, ftot, fgrp, ngrp) != 0) {
+    if (rss_curves(v, i, n, dt, win, sub, nsub, f0, fs, nf, ftot, fgrp, ngrp, threads) != 0) {
         free(tot);
         return -1;
     }
@@ -204,29 +230,50 @@ static int estimate_skew(const float *v, const float *i, size_t n, double dt,
 }
 
 /* Per-window R, L, C at skew tau; medians into r/l/c, spread-based u. */
+typedef struct id_job {
+    const float *v, *i;
+    size_t n;
+    double dt, tau;
+    const tf_window *win;
+    double *pr, *pl, *pc;
+} id_job;
+
+static void id_one(void *ctx, size_t w)
+{
+    const id_job *j = ctx;
+    double th[NPAR];
+    if (window_ls(j->v, j->i, j->n, j->dt, &j->win[w], j->tau, th, NULL, NULL) != 0 ||
+        !(th[3] > 0)) {
+        j->pr[w] = j->pl[w] = j->pc[w] = NAN;
+        return;
+    }
+    j->pr[w] = th[0];
+    j->pl[w] = th[1];
+    j->pc[w] = 1.0 / th[3];
+}
+
 static int identify_at(const float *v, const float *i, size_t n, double dt, const tf_window *win,
-                       size_t nwin, double tau, double *pr, double *pl, double *pc, double *med,
-                       double *u, double *scratch)
+                       size_t nwin, double tau, int threads, double *pr, double *pl, double *pc,
+                       double *med, double *u, double *scratch)
 {
     size_t ok = 0;
     double cov[NPAR * NPAR];
-    for (size_t w = 0; w < nwin; w++) {
-        double th[NPAR], rss;
-        if (window_ls(v, i, n, dt, &win[w], tau, th, &rss, nwin == 1 ? cov : NULL) != 0 ||
-            !(th[3] > 0)) {
-            pr[w] = pl[w] = pc[w] = NAN;
-            continue;
-        }
-        pr[w] = th[0];
-        pl[w] = th[1];
-        pc[w] = 1.0 / th[3];
-        ok++;
-        if (nwin == 1) {
-            u[0] = sqrt(cov[0]);
-            u[1] = sqrt(cov[NPAR + 1]);
-            u[2] = pc[w] * sqrt(cov[3 * NPAR + 3]) / th[3];
-        }
+    if (nwin == 1) {
+        double th[NPAR];
+        if (window_ls(v, i, n, dt, &win[0], tau, th, NULL, cov) != 0 || !(th[3] > 0))
+            return -1;
+        pr[0] = th[0];
+        pl[0] = th[1];
+        pc[0] = 1.0 / th[3];
+        u[0] = sqrt(cov[0]);
+        u[1] = sqrt(cov[NPAR + 1]);
+        u[2] = pc[0] * sqrt(cov[3 * NPAR + 3]) / th[3];
+    } else {
+        id_job j = {v, i, n, dt, tau, win, pr, pl, pc};
+        tf_fit_parallel_for(nwin, threads, id_one, &j);
     }
+    for (size_t w = 0; w < nwin; w++)
+        ok += isfinite(pr[w]);
     if (!ok)
         return -1;
     const double *src[3] = {pr, pl, pc};
@@ -242,8 +289,8 @@ static int identify_at(const float *v, const float *i, size_t n, double dt, cons
 
 tf_status tf_vi_identify(const float *v, const float *i, size_t n, double dt_s,
                          const tf_window *win, size_t nwin, int skew_set, double skew_s,
-                         double search_s, tf_vi_result *out, double *per_r, double *per_l,
-                         double *per_c, tf_error *err)
+                         double search_s, int threads, tf_vi_result *out, double *per_r,
+                         double *per_l, double *per_c, tf_error *err)
 {
     memset(out, 0, sizeof *out);
     if (!nwin || n < 8)
@@ -255,27 +302,38 @@ tf_status tf_vi_identify(const float *v, const float *i, size_t n, double dt_s,
            *pc = per_c ? per_c : buf + 2 * nwin, *scratch = buf + 3 * nwin;
     double tau = skew_set ? skew_s : 0.0, utau = 0.0;
     if (!skew_set) {
-        if (estimate_skew(v, i, n, dt_s, win, nwin, search_s, &tau, &utau) != 0) {
+        if (estimate_skew(v, i, n, dt_s, win, nwin, search_s, threads, &tau, &utau) != 0) {
             free(buf);
             return tf_error_set(err, TF_ERR_NUMERIC, "v-i identification: singular system while searching the skew");
         }
         out->skew_estimated = 1;
     }
     double med[3], u[3], medp[3], up[3], medm[3];
-    if (identify_at(v, i, n, dt_s, win, nwin, tau, pr, pl, pc, med, u, scratch) != 0) {
+    if (identify_at(v, i, n, dt_s, win, nwin, tau, threads, pr, pl, pc, med, u, scratch) != 0) {
         free(buf);
         return tf_error_set(err, TF_ERR_NUMERIC, "v-i identification: no burst gave a positive capacitance");
     }
     if (utau > 0 && isfinite(utau)) {
-        /* the skew's share of the uncertainty, by evaluating at tau +- u */
-        double *tr = malloc(3 * nwin * sizeof *tr);
-        if (tr && identify_at(v, i, n, dt_s, win, nwin, tau + utau, tr, tr + nwin, tr + 2 * nwin,
-                              medp, up, scratch) == 0 &&
-            identify_at(v, i, n, dt_s, win, nwin, tau - utau, tr, tr + nwin, tr + 2 * nwin, medm,
-                        up, scratch) == 0)
-            for (int q = 0; q < 3; q++)
-                u[q] = hypot(isfinite(u[q]) ? u[q] : 0, 0.5 * fabs(medp[q] - medm[q]));
+        /* the skew's share of the uncertainty, by evaluating at tau +- u on up to 256
+         * windows spread over the record (a sensitivity: no need for all) */
+        const size_t ns = nwin < 256 ? nwin : 256;
+        double *tr = malloc(3 * ns * sizeof *tr);
+        tf_window *sw = malloc(ns * sizeof *sw);
+        if (tr && sw) {
+            for (size_t q = 0; q < ns; q++)
+                sw[q] = win[q * nwin / ns];
+            double med0[3], u0[3];
+            if (identify_at(v, i, n, dt_s, sw, ns, tau, threads, tr, tr + ns, tr + 2 * ns, med0,
+                            u0, scratch) == 0 &&
+                identify_at(v, i, n, dt_s, sw, ns, tau + utau, threads, tr, tr + ns, tr + 2 * ns,
+                            medp, up, scratch) == 0 &&
+                identify_at(v, i, n, dt_s, sw, ns, tau - utau, threads, tr, tr + ns, tr + 2 * ns,
+                            medm, up, scratch) == 0)
+                for (int q = 0; q < 3; q++)
+                    u[q] = hypot(isfinite(u[q]) ? u[q] : 0, 0.5 * fabs(medp[q] - medm[q]));
+        }
         free(tr);
+        free(sw);
     }
     out->valid = 1;
     out->r_ohm = med[0];

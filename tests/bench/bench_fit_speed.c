@@ -1,6 +1,7 @@
 /* Fitting speed: tf_fit_run on a half-bridge capture of N bursts of about 1000
  * samples (exact series-RLC bursts with device drops, 40 dB noise), drop model on
- * (C and drops known), lobes skipped, on 1 and on all cores.
+ * (C and drops known), lobes skipped, on 1 and on all cores; then with the voltage
+ * channel (v-i identification with the skew search, power method).
  * Usage: bench_fit_speed [BURSTS] */
 #include <stdio.h>
 #include <stdlib.h>
@@ -38,12 +39,14 @@ int main(int argc, char **argv)
         len += seg->bursts[k].i1 - seg->bursts[k].i0;
     printf("%zu bursts, %.0f samples per burst on average, capture of %zu samples\n",
            seg->nbursts, (double)len / (double)seg->nbursts, cap->n);
-    const int threads[] = {1, 0, 1};
-    for (int t = 0; t < 3; t++) {
+    const int threads[] = {1, 0, 1, 1};
+    const char *what[] = {"drop model", "drop model", "plain model", "drop model + v-i + power"};
+    for (int t = 0; t < 4; t++) {
         tf_fit_options o;
         tf_fit_options_init(&o);
         o.capacitance_f = c.c_f;
-        if (t < 2) { /* the last run: plain model only */
+        roles.voltage = t == 3 ? 1 : -1;
+        if (t != 2) { /* run 2: plain model only */
             o.thyristor_drop_v = c.vt_v;
             o.diode_drop_v = c.vd_v;
         }
@@ -59,7 +62,7 @@ int main(int argc, char **argv)
         }
         double el = now() - t0, cpu = (double)(clock() - c0) / CLOCKS_PER_SEC;
         printf("threads %s, %s: %.3f s wall, %.3f s CPU, %.1f us CPU per burst; R %.5g ohm (true %.5g)\n",
-               threads[t] ? "1" : "all", t < 2 ? "drop model" : "plain model", el, cpu,
+               threads[t] ? "1" : "all", what[t], el, cpu,
                1e6 * cpu / (double)seg->nbursts, r->resistance_ohm.value, c.r_ohm);
         tf_fit_free(r);
     }
