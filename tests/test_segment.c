@@ -309,6 +309,32 @@ static void test_segment_full_bridge_gates(void **state)
     segw_free(&w);
 }
 
+/* Continuous operation: each firing comes as the diode interval ends (firing step = one
+ * damped period 2 pi / wd, textbook series RLC response), no dead zone. */
+static void test_segment_continuous(void **state)
+{
+    (void)state;
+    segw_cfg c;
+    segw_defaults(&c);
+    double L = c.L, C = c.C, a = c.R / (2 * L), w0 = 1 / sqrt(L * C);
+    /* a third of a sample later than the diode's natural end: the test waveform stays
+     * clear of the exact coincidence, and no dead zone can be seen */
+    c.fire_step_s = 2 * M_PI / sqrt(w0 * w0 - a * a) + 0.3 / c.fs;
+    c.snr_db = 40;
+    c.vt = 1.5;
+    c.vd = 1.0;
+    c.duration_s = 3e-3;
+    segw_out w;
+    assert_int_equal(segw_make(&c, &w), 0);
+    tf_segment_result *r = segment(&w, TF_TOPO_UNKNOWN);
+    assert_int_equal(r->topology, TF_TOPO_HALF_BRIDGE);
+    assert_int_equal(r->mode, TF_MODE_CONTINUOUS);
+    expect_all(&w, r, 0.5 * w.cap->dt_s);
+    check_turnoff(&w, r, 2e-6);
+    tf_segment_free(r);
+    segw_free(&w);
+}
+
 static void overlapping(int gates)
 {
     segw_cfg c;
@@ -957,6 +983,7 @@ int main(void)
         cmocka_unit_test(test_segment_dead_zone_bias_removed),
         cmocka_unit_test(test_segment_single_switch),
         cmocka_unit_test(test_segment_full_bridge_gates),
+        cmocka_unit_test(test_segment_continuous),
         cmocka_unit_test(test_segment_overlapping_current_only),
         cmocka_unit_test(test_segment_overlapping_gates),
         cmocka_unit_test(test_segment_ring_down),
