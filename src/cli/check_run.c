@@ -3,6 +3,7 @@
 
 #include <limits.h>
 #include <math.h>
+#include <pthread.h>
 #include <stdlib.h>
 #include <string.h>
 
@@ -299,6 +300,40 @@ static void build_record(const tf_check_args *a, const tf_analysis_options *o, t
     r->record = j;
 }
 
+/* The hash of a capture is computed on a second thread while it is imported: both
+ * read the same file, and the hash then costs little wall time where a core is free. */
+typedef struct hash_job {
+    const char *path;
+    char *hex;
+    unsigned long long *bytes;
+    tf_error err;
+    tf_status st;
+} hash_job;
+
+static void *hash_thread(void *arg)
+{
+    hash_job *j = arg;
+    j->st = tf_record_sha256_file(j->path, j->hex, j->bytes, &j->err);
+    return NULL;
+}
+
+static int load_and_hash(tf_check_item *it, tf_import_options *io)
+{
+    hash_job job = {it->path, it->sha256, &it->bytes, {TF_OK, ""}, TF_OK};
+    pthread_t th;
+    int threaded = pthread_create(&th, NULL, hash_thread, &job) == 0;
+    if (!threaded)
+        hash_thread(&job);
+    int rc = tf_cli_load_capture(it->path, io, &it->cap);
+    if (threaded)
+        pthread_join(th, NULL);
+    if (rc)
+        return rc;
+    if (job.st != TF_OK)
+        return tf_cli_fail(&job.err);
+    return 0;
+}
+
 int tf_check_run_execute(const tf_check_args *a, time_t when, tf_check_run *r)
 {
     tf_error err;
@@ -338,11 +373,9 @@ int tf_check_run_execute(const tf_check_args *a, time_t when, tf_check_run *r)
         tf_check_item *it = &r->items[k];
         it->path = a->captures[k];
         r->nitems = k + 1;
-        if (tf_record_sha256_file(it->path, it->sha256, &it->bytes, &err) != TF_OK)
-            return tf_cli_fail(&err);
         absolute(it->path, it->abspath, sizeof it->abspath);
         tf_import_options iok = io;
-        if ((rc = tf_cli_load_capture(it->path, &iok, &it->cap)) != 0)
+        if ((rc = load_and_hash(it, &iok)) != 0)
             return rc;
         tf_capture_compute_stats(it->cap);
         if (tf_analysis_run(it->cap, r->design, &o, &it->an, &err) != TF_OK) {
