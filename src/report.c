@@ -120,7 +120,7 @@ static const char *check_value_d(char *buf, size_t size, const tf_check *c, doub
     else if (strcmp(c->id, "mode") == 0)
         snprintf(buf, size, "%s", tf_mode_name((tf_mode)(int)v));
     else if (!c->unit[0])
-        snprintf(buf, size, "%.*g", digits, v);
+        tf_si_format(buf, size, v, "", digits);
     else
         si(buf, v, c->unit, digits);
     return buf;
