@@ -126,6 +126,24 @@ static double diff_sigma(const double *x, size_t n, double *scratch)
     return 1.4826 * tf_fit_median(scratch, n - 1) / sqrt(2.0);
 }
 
+/* Non-zero when the segment [b, c) is a short, steep move between two levels: at
+ * most a tenth of the run (and at most 16 bursts), and its own line moves R_eff or
+ * fd by more than 4 noise sigmas and by a physically relevant amount (the same
+ * thresholds as a step). */
+static int steep_transition(const prefix *pr, const prefix *pf, size_t b, size_t c, size_t n,
+                            double sr, double sf, double r0, double f0)
+{
+    const size_t len = c - b;
+    if (len > 16 || len * 10 > n)
+        return 0;
+    double mr, slr, mf, slf;
+    seg_line(pr, b, c, &mr, &slr);
+    seg_line(pf, b, c, &mf, &slf);
+    const double dr = fabs(slr) * (double)len, df = fabs(slf) * (double)len;
+    const double lr = fabs(r0 + sr * mr), lf = fabs(f0 + sf * mf);
+    return (dr > 4.0 && dr * sr > 0.02 * lr) || (df > 4.0 && df * sf > 0.005 * lf);
+}
+
 static tf_status find_changes(tf_track_result *t, double penalty, tf_error *err)
 {
     const size_t n = t->rows_ok;
@@ -196,30 +214,43 @@ static tf_status find_changes(tf_track_result *t, double penalty, tf_error *err)
              * changes is one change, placed at the largest burst-to-burst jump */
             const size_t a = c ? cps[c - 1] : 0, b = cps[c];
             size_t b2 = b;
-            if (c + 1 < ncp && cps[c + 1] - b <= 3)
+            int ramp = 0;
+            if (c + 1 < ncp && cps[c + 1] - b <= 3) {
                 b2 = cps[++c];
+            } else if (c + 1 < ncp && steep_transition(&pr, &pf, b, cps[c + 1], n, sr, sf,
+                                                       r[0], f[0])) {
+                /* a short steep segment between two changes (a load that moves from one
+                 * level to another within a few bursts, like a workpiece passing its
+                 * magnetic transition) is one change with a duration */
+                b2 = cps[++c];
+                ramp = 1;
+            }
             const size_t e = c + 1 < ncp ? cps[c + 1] : n;
             size_t at = b;
             double big = -1;
-            for (size_t k = b; k <= b2 && k < n; k++) {
+            for (size_t k = b; !ramp && k <= b2 && k < n; k++) {
                 const double j = hypot(zr[k] - zr[k - 1], zf[k] - zf[k - 1]);
                 if (j > big) {
                     big = j;
                     at = k;
                 }
             }
-            const double kc = (double)at - 0.5;
             double m1, s1, m2, s2, vals[4];
             const prefix *pp[2] = {&pr, &pf};
             for (int q2 = 0; q2 < 2; q2++) {
+                /* before: the left line at the change's start; after: the right line at
+                 * its end (the same instant for a step) */
+                const double k1 = (double)(ramp ? b : at) - 0.5;
+                const double k2 = (double)(ramp ? b2 : at) - 0.5;
                 seg_line(pp[q2], a, b, &m1, &s1);
                 seg_line(pp[q2], b2, e, &m2, &s2);
-                vals[2 * q2] = m1 + s1 * (kc - 0.5 * (double)(a + b - 1));
-                vals[2 * q2 + 1] = m2 + s2 * (kc - 0.5 * (double)(b2 + e - 1));
+                vals[2 * q2] = m1 + s1 * (k1 - 0.5 * (double)(a + b - 1));
+                vals[2 * q2 + 1] = m2 + s2 * (k2 - 0.5 * (double)(b2 + e - 1));
             }
             tf_track_change *ch = &t->changes[nout++];
             ch->index = map[at];
             ch->time_s = t->rows[map[at]].time_s;
+            ch->duration_s = ramp ? t->rows[map[b2]].time_s - t->rows[map[b]].time_s : 0.0;
             ch->r_before_ohm = r[0] + sr * vals[0];
             ch->r_after_ohm = r[0] + sr * vals[1];
             ch->r_step_ohm = ch->r_after_ohm - ch->r_before_ohm;
@@ -336,6 +367,8 @@ json_t *tf_track_to_json(const tf_track_result *t)
                           "r_after_ohm", num(c->r_after_ohm), "r_step_ohm", num(c->r_step_ohm),
                           "fd_before_hz", num(c->fd_before_hz), "fd_after_hz",
                           num(c->fd_after_hz), "fd_step_hz", num(c->fd_step_hz)));
+        json_object_set_new(json_array_get(ch, json_array_size(ch) - 1), "duration_s",
+                            num(c->duration_s));
     }
     json_object_set_new(o, "rows", rows);
     json_object_set_new(o, "changes", ch);

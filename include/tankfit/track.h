@@ -33,6 +33,8 @@ typedef struct tf_track_change {
     double time_s;             /* that row's time */
     double r_before_ohm, r_after_ohm, r_step_ohm;
     double fd_before_hz, fd_after_hz, fd_step_hz;
+    double duration_s;         /* 0 for a jump between two bursts; else the time a short
+                                  steep transition took (before/after at its two ends) */
     int step;                  /* non-zero: a jump (R by > 4 sigma and > 2 %, or fd by > 4 sigma
                                   and > 0.5 %); else a change of trend or a minor change */
 } tf_track_change;

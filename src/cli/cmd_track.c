@@ -359,8 +359,13 @@ static void print_summary(FILE *out, const tf_track_result *t, const char *coil_
             t->penalty, t->nchanges);
     for (size_t c = 0; c < t->nchanges; c++) {
         const tf_track_change *ch = &t->changes[c];
-        fprintf(out, "  %s at %s (burst %zu): R_eff %s -> %s (%s), fd %s -> %s (%s)\n",
-                ch->step ? "step " : "trend", tf_si_format(b1, 48, ch->time_s, "s", 5),
+        char dur[64] = "";
+        if (ch->duration_s > 0) {
+            char bd[48];
+            snprintf(dur, sizeof dur, " over %s", tf_si_format(bd, 48, ch->duration_s, "s", 3));
+        }
+        fprintf(out, "  %s at %s%s (burst %zu): R_eff %s -> %s (%s), fd %s -> %s (%s)\n",
+                ch->step ? "step " : "trend", tf_si_format(b1, 48, ch->time_s, "s", 5), dur,
                 t->rows[ch->index].burst, tf_si_format(b2, 48, ch->r_before_ohm, "Ohm", 4),
                 tf_si_format(b3, 48, ch->r_after_ohm, "Ohm", 4),
                 tf_si_format(b4, 48, ch->r_step_ohm, "Ohm", 3),
