@@ -474,7 +474,7 @@ static int add_firing_times(pstate *st, const char *text, int col0)
     while ((r = next_item(text, col0, &p, item, sizeof item, &col)) != 0) {
         if (r < 0)
             return fail(st, col, "firing_times: expected an instant, found an empty entry");
-        double t;
+        double t = 0;
         if (!parse_qty(st, "firing_times", TF_DIM_S, TF_RANGE_ANY, item, col, &t))
             return 0;
         if (d->n_firing_times >= TF_DESIGN_MAX_FIRINGS)
@@ -574,14 +574,14 @@ static int set_value(pstate *st, const tf_dkey *k, const char *name, const char 
         return 1;
     }
     case TF_DK_INT: {
-        int v;
+        int v = 0;
         if (!parse_int(st, k, value, col, &v))
             return 0;
         memcpy(base + k->offset, &v, sizeof v);
         return 1;
     }
     case TF_DK_BOOL: {
-        int v;
+        int v = 0;
         if (!parse_bool(st, k, value, col, &v))
             return 0;
         memcpy(base + k->offset, &v, sizeof v);

@@ -599,7 +599,7 @@ static tf_status analyse(const tf_capture *cap, const tf_segment_result *seg,
         lo = fmin(lo, w[c].shift_s);
         hi = fmax(hi, w[c].shift_s);
     }
-    geometry g;
+    geometry g = {0};
     tf_status st = choose_geometry(cap, f, H, lo, hi, &g, err);
     if (st != TF_OK)
         return st;

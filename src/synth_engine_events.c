@@ -125,8 +125,8 @@ double tf__last_pulse(const tf_synth *s, int pos, double t)
     const tf_design *d = &s->d;
     if (s->topo == TF_TOPO_RING_DOWN || d->n_firing_times) {
         size_t n = s->topo == TF_TOPO_RING_DOWN ? 1 : d->n_firing_times;
-        double ft;
-        int fp;
+        double ft = 0;
+        int fp = -1;
         /* largest index with time <= t (binary search over ascending times) */
         size_t lo = 0, hi = n;
         while (lo < hi) {
