@@ -217,6 +217,25 @@ static void test_record_cli_check_and_verify(void **state)
         fail_msg("verify exit %d:\n%s", rc, t);
     assert_non_null(strstr(t, "reproduced exactly"));
     free(t);
+    /* two captures in one run: one record holding both, reproduced by verify */
+    const char *out2 = fresh_dir("records-two");
+    char rest[8300];
+    snprintf(rest, sizeof rest, "--design '%s' --out '%s'", design, out2);
+    t = run_cli(&rc, "check '%s' '%s' %s", capture, capture, rest);
+    assert_int_equal(rc, 0);
+    assert_non_null(strstr(t, "Capture 2:"));
+    free(t);
+    assert_int_equal(count_entries(out2), 2);
+    char rec3[4096];
+    latest_record(out2, 1, rec3);
+    char *r3 = tf_test_slurp(rec3, NULL);
+    json_t *j3 = json_loads(r3, 0, NULL);
+    free(r3);
+    assert_int_equal(json_array_size(json_object_get(j3, "captures")), 2);
+    json_decref(j3);
+    t = run_cli(&rc, "verify '%s'", rec3, "", "");
+    assert_int_equal(rc, 0);
+    free(t);
     /* a changed figure in the record: the last digits of the Q value */
     char *rec = tf_test_slurp(rec2, NULL);
     assert_non_null(rec);
