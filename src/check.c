@@ -222,6 +222,10 @@ static int need_limit(tf_check *c, double limit, const char *key)
 /* Quality gates shared by the timing checks. */
 static int gate_timing(tf_check *c, const tf_check_quality *q)
 {
+    if (q->ring_down) {
+        say(c, TF_VERDICT_NOT_APPLICABLE, "a ring-down test has no firing sequence to judge");
+        return 0;
+    }
     if (q->clipped_zeros) {
         say(c, TF_VERDICT_NOT_EVALUATED, "the current channel is clipped at %.3g A, close to "
             "zero: its zero crossings are not trusted", q->current_clip_level_a);
@@ -346,12 +350,12 @@ static void check_reverse(tf_check_result *r, const tf_check_input *in)
     }
     snprintf(c->limit_key, sizeof c->limit_key, "limits.turnoff_ratio_min x switch.turnoff_time");
     c->limit_lo = d->turnoff_ratio_min * d->turnoff_time_s;
+    if (!gate_timing(c, &r->quality))
+        return;
     if (r->quality.clipped_switch_voltage) {
         say(c, TF_VERDICT_NOT_EVALUATED, "the switch-voltage channel is clipped");
         return;
     }
-    if (!gate_timing(c, &r->quality))
-        return;
     const tf_capture *cap = in->cap;
     double worst_exc = -INFINITY;
     size_t used = 0;
@@ -649,6 +653,8 @@ static void quality(tf_check_result *r, const tf_check_input *in)
                                                                        : tf_check_design_fd(in->design);
     q->samples_per_period = fd > 0 ? 1.0 / (fd * in->cap->dt_s) : NAN;
     min_turnoff(a->seg, &q->cycles);
+    q->ring_down = in->design->topology == TF_TOPO_RING_DOWN ||
+                   (a->seg && a->seg->topology == TF_TOPO_RING_DOWN);
     q->clipped_current = channel_clipped(in->cap, a->roles.current) ||
                          (a->seg && a->seg->clipped_stretches > 0);
     q->current_clip_level_a = NAN;

@@ -461,6 +461,35 @@ static void test_check_mode(void **state)
     fixture_free(f);
 }
 
+/* A ring-down bench test has no firing sequence: the timing checks do not apply,
+ * the tank checks still do. */
+static void test_check_ring_down(void **state)
+{
+    (void)state;
+    fixture *f = fixture_new();
+    f->d->topology = TF_TOPO_RING_DOWN;
+    tf_check_result *r = run(f, 1);
+    const char *na[] = {"turnoff-margin", "reverse-bias", "max-frequency", "mode"};
+    for (size_t k = 0; k < 4; k++)
+        assert_int_equal(find(r, na[k])->verdict, TF_VERDICT_NOT_APPLICABLE);
+    assert_int_equal(find(r, "q-factor")->verdict, TF_VERDICT_PASS);
+    assert_int_equal(r->overall, TF_VERDICT_PASS);
+    tf_check_free(r);
+    fixture_free(f);
+}
+
+/* Limits are closed intervals: a value equal to the limit passes. */
+static void test_check_limit_equal(void **state)
+{
+    (void)state;
+    fixture *f = fixture_new();
+    f->lobes[3].peak_a = -350;
+    assert_int_equal(verdict(f, "peak-current"), TF_VERDICT_PASS);
+    f->lobes[3].peak_a = -350.001;
+    assert_int_equal(verdict(f, "peak-current"), TF_VERDICT_FAIL);
+    fixture_free(f);
+}
+
 static void test_check_verdicts(void **state)
 {
     (void)state;
@@ -669,6 +698,8 @@ int main(void)
         cmocka_unit_test(test_check_harmonics),
         cmocka_unit_test(test_check_peaks),
         cmocka_unit_test(test_check_mode),
+        cmocka_unit_test(test_check_ring_down),
+        cmocka_unit_test(test_check_limit_equal),
         cmocka_unit_test(test_check_verdicts),
         cmocka_unit_test(test_check_sim_pass),
         cmocka_unit_test(test_check_sim_tq_raised),

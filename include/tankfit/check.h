@@ -79,6 +79,7 @@ typedef struct tf_check_quality {
     size_t cycles;               /* complete firing cycles with a turn-off time */
     int clipped_current, clipped_voltage, clipped_cap_voltage, clipped_switch_voltage;
     double current_clip_level_a;  /* smallest |level| the current is clipped at (NAN: none) */
+    int ring_down;                /* a ring-down test: the timing checks do not apply */
     int clipped_zeros;            /* the clipping reaches within TF_CHECK_CLIP_BAND_FACTOR
                                      hysteresis bands of zero: current zeros not trusted */
 } tf_check_quality;
