@@ -23,6 +23,25 @@ static int name_in(const char *name, const char *const *list)
     return 0;
 }
 
+static void append(char *buf, size_t size, const char *fmt, const char *a, const char *b)
+{
+    size_t l = strlen(buf);
+    if (l + 1 >= size)
+        return;
+    snprintf(buf + l, size - l, fmt, l ? ", " : "", a, b);
+}
+
+/* Comma-separated list of the capture's channels (with units) for messages. */
+static void channel_list(const tf_capture *cap, char *have, size_t size)
+{
+    have[0] = '\0';
+    for (size_t k = 0; k < cap->nchan; k++)
+        append(have, size, cap->ch[k].unit[0] ? "%s%s (%s)" : "%s%s%s", cap->ch[k].name,
+               cap->ch[k].unit);
+    if (!have[0])
+        snprintf(have, size, "none");
+}
+
 static tf_status lookup(const tf_capture *cap, const char *name, const char *role, int *slot,
                         tf_error *err)
 {
@@ -30,11 +49,8 @@ static tf_status lookup(const tf_capture *cap, const char *name, const char *rol
         return TF_OK;
     int c = tf_capture_find(cap, name);
     if (c < 0) {
-        char have[512] = "";
-        for (size_t k = 0; k < cap->nchan; k++) {
-            size_t l = strlen(have);
-            snprintf(have + l, sizeof have - l, "%s%s", k ? ", " : "", cap->ch[k].name);
-        }
+        char have[512];
+        channel_list(cap, have, sizeof have);
         return tf_error_set(err, TF_ERR_USAGE, "%s channel '%s' is not in %s (channels: %s)",
                             role, name, cap->path[0] ? cap->path : "the capture", have);
     }
@@ -42,24 +58,63 @@ static tf_status lookup(const tf_capture *cap, const char *name, const char *rol
     return TF_OK;
 }
 
-/* Guess a role from names only; exactly one candidate channel, not yet used. */
+static int used(const tf_roles *r, int c)
+{
+    if (r->current == c || r->voltage == c || r->cap_voltage == c || r->switch_voltage == c)
+        return 1;
+    for (int g = 0; g < 4; g++)
+        if (r->gate[g] == c)
+            return 1;
+    return 0;
+}
+
+/* A guess by name must not contradict a unit the file states: a column called
+ * "i" in volts is a voltage probe's output, not a current. */
+static int unit_fits(const char *unit, const char *want)
+{
+    return !unit[0] || strcmp(unit, want) == 0;
+}
+
+/* Guess a role from names only: exactly one candidate channel, not yet used by
+ * another role, whose unit (if any) is the role's. */
 static void guess(const tf_capture *cap, tf_roles *r, int *slot, const char *role,
-                  const char *const *names)
+                  const char *unit, const char *const *names)
 {
     if (*slot >= 0)
         return;
     int found = -1, count = 0;
     for (size_t c = 0; c < cap->nchan; c++)
-        if (name_in(cap->ch[c].name, names)) {
+        if (!used(r, (int)c) && name_in(cap->ch[c].name, names) &&
+            unit_fits(cap->ch[c].unit, unit)) {
             found = (int)c;
             count++;
         }
     if (count != 1)
         return;
     *slot = found;
-    size_t l = strlen(r->guessed);
-    snprintf(r->guessed + l, sizeof r->guessed - l, "%s%s = '%s'", l ? ", " : "", role,
-             cap->ch[found].name);
+    append(r->guessed, sizeof r->guessed, "%s%s = '%s'", role, cap->ch[found].name);
+}
+
+static tf_status no_current(const tf_capture *cap, const tf_roles *r, tf_error *err)
+{
+    char amps[256] = "", have[512];
+    int count = 0;
+    for (size_t c = 0; c < cap->nchan; c++)
+        if (!used(r, (int)c) && strcmp(cap->ch[c].unit, "A") == 0) {
+            append(amps, sizeof amps, "%s'%s'%s", cap->ch[c].name, "");
+            count++;
+        }
+    if (count > 1)
+        return tf_error_set(err, TF_ERR_USAGE,
+                            "no load-current channel: %d channels are in A (%s), which one is "
+                            "the load current is not clear: give --current NAME or [channels] "
+                            "current in the design file",
+                            count, amps);
+    channel_list(cap, have, sizeof have);
+    return tf_error_set(err, TF_ERR_USAGE,
+                        "no load-current channel among %s: give --current NAME or [channels] "
+                        "current in the design file",
+                        have);
 }
 
 tf_status tf_roles_resolve(const tf_capture *cap, const tf_role_names *names,
@@ -104,30 +159,27 @@ tf_status tf_roles_resolve(const tf_capture *cap, const tf_role_names *names,
                 (st = lookup(cap, design->ch_gate[g], "[channels] gate", &r->gate[g], err)))
                 return st;
     }
-    guess(cap, r, &r->current, "current", cur);
-    guess(cap, r, &r->voltage, "output voltage", vout);
-    guess(cap, r, &r->cap_voltage, "capacitor voltage", vcap);
-    guess(cap, r, &r->switch_voltage, "switch voltage", vsw);
+    guess(cap, r, &r->current, "current", "A", cur);
+    guess(cap, r, &r->voltage, "output voltage", "V", vout);
+    guess(cap, r, &r->cap_voltage, "capacitor voltage", "V", vcap);
+    guess(cap, r, &r->switch_voltage, "switch voltage", "V", vsw);
     for (int g = 0; g < 4; g++)
-        guess(cap, r, &r->gate[g], "gate", gnames[g]);
+        guess(cap, r, &r->gate[g], "gate", "V", gnames[g]);
     if (r->current < 0) {
-        /* the only channel in amperes is unambiguous too */
+        /* the only free channel in amperes is unambiguous too */
         int found = -1, count = 0;
         for (size_t c = 0; c < cap->nchan; c++)
-            if (strcmp(cap->ch[c].unit, "A") == 0) {
+            if (!used(r, (int)c) && strcmp(cap->ch[c].unit, "A") == 0) {
                 found = (int)c;
                 count++;
             }
         if (count == 1) {
             r->current = found;
-            size_t l = strlen(r->guessed);
-            snprintf(r->guessed + l, sizeof r->guessed - l, "%scurrent = '%s' (only channel in A)",
-                     l ? ", " : "", cap->ch[found].name);
+            append(r->guessed, sizeof r->guessed, "%scurrent = '%s'%s", cap->ch[found].name,
+                   " (only channel in A)");
         }
     }
     if (r->current < 0)
-        return tf_error_set(err, TF_ERR_USAGE,
-                            "no load-current channel: give --current NAME or [channels] current "
-                            "in the design file");
+        return no_current(cap, r, err);
     return TF_OK;
 }
