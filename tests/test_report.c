@@ -244,9 +244,14 @@ static void test_report_chromium(void **state)
     assert_true(len > 1000);
     assert_memory_equal(t, "%PDF", 4);
     free(t);
+    /* pages, and their size: A4 is 210 x 297 mm = 595.3 x 841.9 pt (source: ISO 216) */
     assert_int_equal(tf_test_system("/usr/bin/python3 -c \"import re,sys; d=open(sys.argv[1],'rb')"
                                     ".read(); n=len(re.findall(rb'/Type\\s*/Page[^s]', d)); "
-                                    "print('pages', n); sys.exit(0 if n >= 1 else 1)\" '%s'", pdf),
+                                    "b=[list(map(float,m.split())) for m in re.findall("
+                                    "rb'/MediaBox\\s*\\[([^\\]]*)\\]', d)]; "
+                                    "a4=all(abs(x[2]-x[0]-595.3)<2 and abs(x[3]-x[1]-841.9)<2 "
+                                    "for x in b); print('pages', n, 'A4', a4); "
+                                    "sys.exit(0 if n >= 1 and b and a4 else 1)\" '%s'", pdf),
                      0);
 }
 
