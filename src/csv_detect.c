@@ -295,11 +295,49 @@ static void trim(const char **s, size_t *len)
         (*len)--;
 }
 
+/* Copy a header field as UTF-8: valid UTF-8 sequences are kept, any other byte
+ * 0xA0..0xFF is read as Windows-1252 / ISO 8859-1 (0xB5 micro sign, 0xB0 degree
+ * sign: the code point equals the byte), 0x80..0x9F becomes '?'. Returns the
+ * length written (out has room for outsize - 1 bytes and a NUL). */
+static size_t header_utf8(const char *s, size_t len, char *out, size_t outsize)
+{
+    size_t o = 0;
+    for (size_t i = 0; i < len && o + 4 < outsize;) {
+        unsigned char b = (unsigned char)s[i];
+        size_t need = b < 0x80 ? 0 : (b & 0xE0) == 0xC0 ? 1 : (b & 0xF0) == 0xE0 ? 2
+                                  : (b & 0xF8) == 0xF0 ? 3 : 9;
+        int valid = need == 0;
+        if (need >= 1 && need <= 3 && b >= 0xC2 && i + need < len) {
+            valid = 1;
+            for (size_t k = 1; k <= need; k++)
+                if (((unsigned char)s[i + k] & 0xC0) != 0x80)
+                    valid = 0;
+        }
+        if (valid) {
+            memcpy(out + o, s + i, need + 1);
+            o += need + 1;
+            i += need + 1;
+        } else if (b >= 0xA0) {
+            out[o++] = (char)(0xC0 | (b >> 6));
+            out[o++] = (char)(0x80 | (b & 0x3F));
+            i++;
+        } else {
+            out[o++] = '?';
+            i++;
+        }
+    }
+    out[o] = '\0';
+    return o;
+}
+
 /* "v [kV]" -> name "v", unit "V", factor 1000; "i_load (A)" -> "i_load", "A", 1. */
-static void parse_column_name(const char *s, size_t len, size_t index, tf_csv_column *col)
+static void parse_column_name(const char *raw, size_t rawlen, size_t index, tf_csv_column *col)
 {
     const char *unit = NULL;
     size_t ulen = 0;
+    char utf[512];
+    size_t len = header_utf8(raw, rawlen, utf, sizeof utf);
+    const char *s = utf;
     trim(&s, &len);
     col->factor = 1.0;
     col->unit[0] = '\0';
@@ -314,6 +352,7 @@ static void parse_column_name(const char *s, size_t len, size_t index, tf_csv_co
             }
     }
     trim(&s, &len);
+    col->unnamed = len == 0;
     if (len == 0)
         snprintf(col->name, sizeof col->name, "col%zu", index + 1);
     else
@@ -429,10 +468,12 @@ static size_t head_times(const head *h, tf_csv_layout *lay, size_t first, size_t
             sig = tf_csv_sig_digits(&nt[k]);
     }
     lay->time_sig = fixed ? 0 : sig;
-    for (size_t k = 0; k < n; k++) { /* as tf_time_acc_add: never below 4 ulp of the value */
+    for (size_t k = 0; k < n; k++) { /* as tf_time_acc_add: never below 4 ulp of the
+                                          * value or of the first value (t0 + k*dt) */
         q[k] = tf_csv_resolution(&nt[k], lay->time_sig) * lay->cols[col].factor;
-        if (q[k] < 4.0 * DBL_EPSILON * fabs(t[k]))
-            q[k] = 4.0 * DBL_EPSILON * fabs(t[k]);
+        double floor_q = 4.0 * DBL_EPSILON * (fabs(t[k]) + fabs(t[0]));
+        if (q[k] < floor_q)
+            q[k] = floor_q;
     }
     return n;
 }
@@ -447,8 +488,14 @@ static double reference_step(const double *t, const double *q, size_t n, double 
         scratch[i - 1] = t[i] - t[i - 1];
     qsort(scratch, n - 1, sizeof *scratch, cmp_double);
     double med = scratch[(n - 1) / 2];
+    /* the median is one step of the head, perhaps between its largest (coarsest)
+     * values: allow for its own rounding too */
+    double qmax = 0;
+    for (size_t i = 0; i < n; i++)
+        if (q[i] > qmax)
+            qmax = q[i];
     size_t m = 1;
-    while (m < n && fabs(t[m] - t[m - 1] - med) <= 1.5 * (q[m] + q[m - 1]))
+    while (m < n && fabs(t[m] - t[m - 1] - med) <= 1.5 * (q[m] + q[m - 1]) + 2.0 * qmax)
         m++;
     if (m < 3)
         return m == 2 ? t[1] - t[0] : med;
@@ -567,14 +614,83 @@ static tf_status choose(head *h, tf_csv_layout *lay, fieldset *fs, const tf_csv_
     return TF_OK;
 }
 
+/* Bytes to skip before a header written as a comment ("# t,v,i", "% t;v"):
+ * leading blanks, a run of '#' or '%', and the blanks after it. 0 otherwise. */
+static size_t comment_skip(const head *h, size_t i)
+{
+    const char *s = h->buf + h->start[i];
+    size_t n = h->length[i], k = 0;
+    while (k < n && (s[k] == ' ' || s[k] == '\t'))
+        k++;
+    if (k >= n || (s[k] != '#' && s[k] != '%'))
+        return 0;
+    char c = s[k];
+    while (k < n && s[k] == c)
+        k++;
+    while (k < n && (s[k] == ' ' || s[k] == '\t'))
+        k++;
+    return k < n ? k : 0;
+}
+
+static int split_header(const head *h, size_t i, char delim, fieldset *fs)
+{
+    size_t k = comment_skip(h, i);
+    return split_line(h->buf + h->start[i] + k, h->length[i] - k, delim, fs);
+}
+
+/* A known unit, alone or in brackets: "s", "kV", "(A)", "[us]", "%". */
+static int known_unit(const char *s, size_t len)
+{
+    char text[48], base[TF_NAME_SIZE];
+    double factor;
+    trim(&s, &len);
+    if (len >= 2 && ((s[0] == '(' && s[len - 1] == ')') || (s[0] == '[' && s[len - 1] == ']'))) {
+        s++;
+        len -= 2;
+        trim(&s, &len);
+    }
+    if (len == 0 || len > 30)
+        return 0;
+    if (len == 1 && s[0] == '%')
+        return 1;
+    char utf[128];
+    size_t ul = header_utf8(s, len, utf, sizeof utf);
+    snprintf(text, sizeof text, "1 %.*s", (int)ul, utf);
+    return tf_parse_quantity(text, &factor, base, sizeof base) == 0 && base[0];
+}
+
+/* A row of units under the names: every field empty, bracketed, or a short token
+ * without blanks, and more than half of the non-empty ones known units. */
+static int units_row(const fieldset *fs, size_t ncols)
+{
+    size_t known = 0, nonempty = 0;
+    for (size_t k = 0; k < ncols && k < fs->n; k++) {
+        const char *f = fs_get(fs, k);
+        size_t len = fs->len[k];
+        trim(&f, &len);
+        if (len == 0)
+            continue;
+        nonempty++;
+        int bracketed = len >= 2 && (f[0] == '(' || f[0] == '[');
+        if (!bracketed && (len > 12 || memchr(f, ' ', len)))
+            return 0;
+        known += (size_t)known_unit(f, len);
+    }
+    return nonempty > 0 && 2 * known > nonempty;
+}
+
 /* Header: the first line of ncols non-numeric fields followed (after blank
- * lines) by a numeric row of ncols fields. Without one, data starts at the
- * first numeric row of ncols fields. Returns the index of the first data line. */
-static size_t find_header(const head *h, tf_csv_layout *lay, fieldset *fs, size_t *header)
+ * lines) by a numeric row of ncols fields; it may be written as a comment
+ * ("# t,v"), and it may be a row of units under a row of names (then *units is
+ * that line and *header the names). Without one, data starts at the first
+ * numeric row of ncols fields. Returns the index of the first data line. */
+static size_t find_header(const head *h, tf_csv_layout *lay, fieldset *fs, size_t *header,
+                          size_t *units)
 {
     line_info li;
     size_t first_data = h->nlines;
     *header = h->nlines;
+    *units = h->nlines;
     for (size_t i = 0; i < h->nlines; i++) {
         if (blank(h, i))
             continue;
@@ -584,9 +700,10 @@ static size_t find_header(const head *h, tf_csv_layout *lay, fieldset *fs, size_
                 first_data = i;
             break;
         }
-        if (split_line(h->buf + h->start[i], h->length[i], lay->delim, fs) != 0 ||
+        if (split_header(h, i, lay->delim, fs) != 0 ||
             !header_ok(fs, lay->ncols, lay->space_mode, lay->decimal))
             continue;
+        int unitlike = units_row(fs, lay->ncols);
         size_t j = i + 1;
         while (j < h->nlines && blank(h, j))
             j++;
@@ -595,29 +712,84 @@ static size_t find_header(const head *h, tf_csv_layout *lay, fieldset *fs, size_
         classify(h, j, lay->delim, lay->decimal, fs, &li);
         if (is_numeric_row(&li) && row_fits(&li, lay->ncols)) {
             *header = i;
+            size_t p = i;
+            while (p > 0 && blank(h, p - 1))
+                p--;
+            if (unitlike && p > 0 && split_header(h, p - 1, lay->delim, fs) == 0 &&
+                header_ok(fs, lay->ncols, lay->space_mode, lay->decimal) &&
+                !units_row(fs, lay->ncols)) {
+                *units = i;
+                *header = p - 1;
+            }
             return j;
         }
     }
     return first_data;
 }
 
-static tf_status fill_columns(const head *h, tf_csv_layout *lay, size_t header, fieldset *fs,
-                              tf_error *err)
+static tf_status fill_columns(const head *h, tf_csv_layout *lay, size_t header, size_t units,
+                              fieldset *fs, tf_error *err)
 {
     lay->cols = calloc(lay->ncols, sizeof *lay->cols);
     if (!lay->cols)
         return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
-    int have = header < h->nlines &&
-               split_line(h->buf + h->start[header], h->length[header], lay->delim, fs) == 0;
+    /* "name" and a unit from the units row become "name [unit]" */
+    char (*unit)[40] = NULL;
+    if (units < h->nlines) {
+        unit = calloc(lay->ncols, sizeof *unit);
+        if (!unit)
+            return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
+        if (split_header(h, units, lay->delim, fs) == 0) {
+            if (lay->space_mode)
+                merge_units(fs);
+            for (size_t c = 0; c < lay->ncols && c < fs->n; c++) {
+                const char *u = fs_get(fs, c);
+                size_t len = fs->len[c];
+                trim(&u, &len);
+                if (len && len < 30 && (u[0] == '(' || u[0] == '['))
+                    snprintf(unit[c], sizeof unit[c], " %.*s", (int)len, u);
+                else if (len && len < 30)
+                    snprintf(unit[c], sizeof unit[c], " [%.*s]", (int)len, u);
+            }
+        }
+    }
+    int have = header < h->nlines && split_header(h, header, lay->delim, fs) == 0;
     if (have && lay->space_mode)
         merge_units(fs);
     for (size_t c = 0; c < lay->ncols; c++) {
-        if (have && c < fs->n)
-            parse_column_name(fs_get(fs, c), fs->len[c], c, &lay->cols[c]);
-        else
-            parse_column_name("", 0, c, &lay->cols[c]);
+        char both[600];
+        const char *name = have && c < fs->n ? fs_get(fs, c) : "";
+        size_t len = have && c < fs->n ? fs->len[c] : 0;
+        if (unit && unit[c][0] && len && !memchr(name, '(', len) && !memchr(name, '[', len)) {
+            int k = snprintf(both, sizeof both, "%.*s%s", (int)(len < 500 ? len : 500), name,
+                             unit[c]);
+            parse_column_name(both, (size_t)k, c, &lay->cols[c]);
+        } else {
+            parse_column_name(name, len, c, &lay->cols[c]);
+        }
     }
+    free(unit);
     return TF_OK;
+}
+
+/* Unnamed columns at the end that are empty in every data row of the head (a
+ * spreadsheet's trailing empty columns) are not channels. */
+static void mark_empty_columns(const head *h, tf_csv_layout *lay, size_t first, fieldset *fs)
+{
+    size_t c = lay->ncols;
+    while (c > 1 && lay->cols[c - 1].unnamed)
+        c--;
+    if (c == lay->ncols)
+        return;
+    for (size_t i = first; i < h->nlines && c < lay->ncols; i++) {
+        if (blank(h, i) || split_line(h->buf + h->start[i], h->length[i], lay->delim, fs) != 0)
+            continue;
+        for (size_t k = c; k < lay->ncols && k < fs->n; k++)
+            if (fs->len[k] != 0)
+                c = k + 1;
+    }
+    for (; c < lay->ncols; c++)
+        lay->cols[c].empty = 1;
 }
 
 tf_status tf_csv_detect(const tf_csv_source *src, const tf_import_options *opt,
@@ -636,12 +808,13 @@ tf_status tf_csv_detect(const tf_csv_source *src, const tf_import_options *opt,
         goto done;
     if ((st = choose(h, lay, fs, src, err)) != TF_OK)
         goto done;
-    size_t header, first = find_header(h, lay, fs, &header);
+    size_t header, units, first = find_header(h, lay, fs, &header, &units);
     if (first >= h->nlines) {
         st = no_data_error(h, src, err);
         goto done;
     }
     lay->header_line = header < h->nlines ? header + 1 : 0;
+    lay->units_line = units < h->nlines ? units + 1 : 0;
     lay->data_line = first + 1;
     lay->data_offset = h->start[first];
     size_t meta_end = header < h->nlines ? header : first;
@@ -654,8 +827,10 @@ tf_status tf_csv_detect(const tf_csv_source *src, const tf_import_options *opt,
         }
         lay->metadata_lines++;
     }
-    if ((st = fill_columns(h, lay, header, fs, err)) != TF_OK)
+    if ((st = fill_columns(h, lay, header, units, fs, err)) != TF_OK)
         goto done;
+    if (lay->header_line)
+        mark_empty_columns(h, lay, first, fs);
     st = find_time(h, opt, lay, first, fs, src, err);
 done:
     if (h)

@@ -36,6 +36,9 @@ typedef struct tf_csv_column {
     char name[TF_NAME_SIZE];
     char unit[TF_UNIT_SIZE];
     double factor;                 /* from a prefixed unit in the header ("kV" -> 1000) */
+    int unnamed;                   /* the header field was empty, or there is no header */
+    int empty;                     /* unnamed trailing column, empty in every head row: its
+                                      fields must stay empty and it is not a channel */
 } tf_csv_column;
 
 /* The layout found by tf_csv_detect. */
@@ -49,6 +52,7 @@ typedef struct tf_csv_layout {
     size_t ncols;                  /* fields per data row */
     tf_csv_column *cols;           /* ncols entries (malloc'd) */
     size_t header_line;            /* 1-based; 0 when none */
+    size_t units_line;             /* 1-based line of a units row under the header; 0: none */
     size_t data_line;              /* 1-based line of the first data row */
     size_t data_offset;            /* byte offset of that line */
     size_t metadata_lines;         /* non-blank lines before the header/data */
@@ -113,6 +117,7 @@ typedef struct tf_time_block {
 /* Streaming accumulator of one parser thread: u_k = t_k - (t_first + k * d_ref). */
 typedef struct tf_time_acc {
     double d_ref;
+    double t_scale;                /* |first time of the file|: q is never below 4 ulp of it */
     size_t n;                      /* values added */
     double t_first, q_first;
     size_t line_first;
@@ -124,7 +129,8 @@ typedef struct tf_time_acc {
 } tf_time_acc;
 
 /* Prepare for up to max_rows values. TF_ERR_NOMEM on failure. */
-tf_status tf_time_acc_init(tf_time_acc *a, double d_ref, size_t max_rows, tf_error *err);
+tf_status tf_time_acc_init(tf_time_acc *a, double t_ref, double d_ref, size_t max_rows,
+                           tf_error *err);
 void tf_time_acc_free(tf_time_acc *a);
 
 /* Add the value t printed as text (resolution q) from line. Returns 0, or -1

@@ -125,10 +125,12 @@ int tf_csv_sig_digits(const tf_num_text *nt)
     return nt->nonzero ? (int)(nt->lead - (nt->exp - nt->frac) + 1) : 0;
 }
 
-tf_status tf_time_acc_init(tf_time_acc *a, double d_ref, size_t max_rows, tf_error *err)
+tf_status tf_time_acc_init(tf_time_acc *a, double t_ref, double d_ref, size_t max_rows,
+                           tf_error *err)
 {
     memset(a, 0, sizeof *a);
     a->d_ref = d_ref;
+    a->t_scale = fabs(t_ref);
     a->cap_blocks = max_rows / TF_TIME_BLOCK + 2;
     a->blocks = malloc(a->cap_blocks * sizeof *a->blocks);
     if (!a->blocks)
@@ -156,8 +158,11 @@ int tf_time_acc_add(tf_time_acc *a, double t, double q, size_t line, char *msg,
                     size_t msg_size)
 {
     size_t k = a->n;
-    if (q < 4.0 * DBL_EPSILON * fabs(t))
-        q = 4.0 * DBL_EPSILON * fabs(t); /* no finer than the double itself */
+    /* no finer than the double itself, nor than the first time: a generator's
+     * t0 + k*dt keeps the rounding of t0 even where it passes zero */
+    double floor_q = 4.0 * DBL_EPSILON * (fabs(t) + a->t_scale);
+    if (q < floor_q)
+        q = floor_q;
     if (k == 0) {
         a->t_first = t;
         a->q_first = q;

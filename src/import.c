@@ -117,19 +117,53 @@ tf_status tf_import_apply_options(tf_capture *cap, const tf_import_options *opt,
     return TF_OK;
 }
 
+/* First bytes of the containers libsndfile reads (its format list): RIFF/RIFX/RF64/BW64
+ * WAV, W64 ("riff" GUID), AIFF/SVX ("FORM"), FLAC, Ogg, AU (both byte orders), CAF,
+ * NIST SPHERE, VOC, AVR, PAF (both orders), MAT5, IRCAM (its four magic words). */
+static int sound_magic(const unsigned char *h, size_t got)
+{
+    static const char *const magics[] = {"RIFF", "RIFX", "RF64", "BW64", "riff", "FORM",
+                                         "fLaC", "OggS", ".snd", "dns.", "caff", "NIST",
+                                         "Crea", "2BIT", " paf", "fap ", "MATL", NULL};
+    static const unsigned char ircam[][4] = {{0x64, 0xa3, 0x01, 0x00}, {0x00, 0x01, 0xa3, 0x64},
+                                             {0x64, 0xa3, 0x02, 0x00}, {0x00, 0x02, 0xa3, 0x64},
+                                             {0x64, 0xa3, 0x03, 0x00}, {0x00, 0x03, 0xa3, 0x64},
+                                             {0x64, 0xa3, 0x04, 0x00}, {0x00, 0x04, 0xa3, 0x64}};
+    if (got < 4)
+        return 0;
+    for (int i = 0; magics[i]; i++)
+        if (memcmp(h, magics[i], 4) == 0)
+            return 1;
+    for (size_t i = 0; i < sizeof ircam / sizeof ircam[0]; i++)
+        if (memcmp(h, ircam[i], 4) == 0)
+            return 1;
+    return 0;
+}
+
 tf_status tf_import_file(const char *path, const tf_import_options *opt, tf_capture **out,
                          tf_error *err)
 {
-    unsigned char head[12] = {0};
+    unsigned char head[4096];
     FILE *f = fopen(path, "rb");
     if (!f)
         return tf_error_set(err, TF_ERR_NOINPUT, "%s: cannot open: %s", path, strerror(errno));
     size_t got = fread(head, 1, sizeof head, f);
     fclose(f);
-    static const char *const magics[] = {"RIFF", "RIFX", "RF64", "FORM", "fLaC", "OggS",
-                                         "riff", ".snd", "BW64", NULL};
-    for (int i = 0; got >= 4 && magics[i]; i++)
-        if (memcmp(head, magics[i], 4) == 0)
-            return tf_import_wav(path, opt, out, err);
+    if (sound_magic(head, got))
+        return tf_import_wav(path, opt, out, err);
+    /* text has no zero bytes (UTF-16 with its byte-order mark goes to the CSV reader,
+     * which asks for UTF-8); binary data may still be a sound file libsndfile knows */
+    int utf16 = got >= 2 && ((head[0] == 0xFF && head[1] == 0xFE) ||
+                             (head[0] == 0xFE && head[1] == 0xFF));
+    const unsigned char *zero = utf16 ? NULL : memchr(head, 0, got);
+    if (zero) {
+        tf_status st = tf_import_wav(path, opt, out, err);
+        if (st != TF_ERR_DATA)
+            return st;
+        return tf_error_set(err, TF_ERR_DATA,
+                            "%s:1:1: expected a text capture (CSV, UTF-8) or a sound file "
+                            "that libsndfile reads, found binary data (a zero byte at byte %zu)",
+                            path, (size_t)(zero - head) + 1);
+    }
     return tf_import_csv(path, opt, out, err);
 }

@@ -23,7 +23,7 @@
 #define TF_CSV_MIN_SPLIT ((size_t)8 << 20) /* harness lowers it to reach both) */
 #endif
 #define MAX_WORKERS 2
-enum { MAP_SKIP = -1, MAP_TIME = -2 };
+enum { MAP_SKIP = -1, MAP_TIME = -2, MAP_EMPTY = -3 };
 
 typedef struct csv_job {
     const tf_csv_source *src;
@@ -136,8 +136,15 @@ static void on_field(void *data, size_t len, void *ctx)
         return;
     }
     int m = w->map[c];
-    if (m == MAP_SKIP)
+    if (m < 0 && m != MAP_TIME) {
+        if (m == MAP_EMPTY && len != 0) {
+            char ex[64];
+            fail(w, TF_ERR_DATA, c + 1, "expected an empty field (the column has no name and "
+                 "is empty in the first rows), found '%s'",
+                 tf_error_excerpt(ex, sizeof ex, s, (unsigned)len, TF_CSV_EXCERPT));
+        }
         return;
+    }
     if (w->row >= w->cap) {
         fail(w, TF_ERR_DATA, c + 1, "expected %s line ends throughout, found another kind",
              w->job->lay->line_end);
@@ -350,7 +357,7 @@ static long choose_columns(const tf_csv_layout *lay, const tf_import_options *op
 {
     long n = 0;
     for (size_t c = 0; c < lay->ncols; c++)
-        map[c] = (int)c == lay->time_col ? MAP_TIME : MAP_SKIP;
+        map[c] = (int)c == lay->time_col ? MAP_TIME : lay->cols[c].empty ? MAP_EMPTY : MAP_SKIP;
     if (!opt->channels[0]) {
         for (size_t c = 0; c < lay->ncols; c++)
             if (map[c] == MAP_SKIP)
@@ -535,7 +542,7 @@ static tf_status run_parse(const tf_csv_source *src, const tf_csv_layout *lay, c
         else
             w[i].gap_line = w[i].gaps + job->nout;
         if (st == TF_OK && lay->time_col >= 0)
-            st = tf_time_acc_init(&w[i].time, lay->d_ref, w[i].cap, err);
+            st = tf_time_acc_init(&w[i].time, lay->t_ref, lay->d_ref, w[i].cap, err);
     }
     if (st == TF_OK)
         run_workers(w, *nw, parse_part);

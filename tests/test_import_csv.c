@@ -613,6 +613,153 @@ static void test_import_csv_memory_entry(void **state)
     tf_capture_destroy(cap);
 }
 
+/* ---- outside references: files written by numpy.savetxt, pandas.DataFrame.to_csv,
+ * Python's csv module and invented instrument-like layouts
+ * (tests/support/import_csv_robust.py; each case names its tool there) ---- */
+
+/* One case: generate, import, compare with what the generator says it wrote.
+ * Returns 0 when the importer did the right thing, else prints why. */
+static int robust_case(const char *name)
+{
+    char csvname[96], expname[96];
+    snprintf(csvname, sizeof csvname, "robust-%s.csv", name);
+    snprintf(expname, sizeof expname, "robust-%s.exp", name);
+    const char *p = tf_test_tmpfile(csvname);
+    char csvpath[512], exppath[512];
+    snprintf(csvpath, sizeof csvpath, "%s", p);
+    snprintf(exppath, sizeof exppath, "%s", tf_test_tmpfile(expname));
+    if (tf_test_system("/usr/bin/python3 '%s' %s '%s' '%s'",
+                       tf_test_src("tests/support/import_csv_robust.py"), name, csvpath,
+                       exppath) != 0) {
+        print_error("%s: the generator failed\n", name);
+        return 1;
+    }
+    FILE *e = fopen(exppath, "r");
+    if (!e)
+        return print_error("%s: no expectation file\n", name), 1;
+    char kind[16] = "";
+    int bad = 0;
+    if (fscanf(e, "%15s", kind) != 1) {
+        fclose(e);
+        return print_error("%s: empty expectation\n", name), 1;
+    }
+    tf_import_options opt;
+    tf_import_options_init(&opt);
+    tf_capture *cap = NULL;
+    tf_error err;
+    tf_error_clear(&err);
+    if (strcmp(kind, "error") == 0) {
+        char code[16], text[256], want[600];
+        unsigned line, col;
+        if (fscanf(e, "%15s %u %u %255[^\n]", code, &line, &col, text) != 4) {
+            fclose(e);
+            return print_error("%s: bad expectation\n", name), 1;
+        }
+        tf_status wcode = strcmp(code, "USAGE") == 0 ? TF_ERR_USAGE : TF_ERR_DATA;
+        tf_status st = tf_import_csv(csvpath, &opt, &cap, &err);
+        snprintf(want, sizeof want, "%s:%u:%u: ", csvpath, line, col);
+        if (st != wcode || strncmp(err.msg, want, strlen(want)) != 0 || !strstr(err.msg, text)) {
+            print_error("%s: expected code %d '%s...%s', got %d '%s'\n", name, (int)wcode, want,
+                        text, (int)st, err.msg);
+            bad = 1;
+        }
+        if (cap)
+            tf_capture_destroy(cap), bad = 1;
+        fclose(e);
+        return bad;
+    }
+    size_t n, nchan;
+    double t0, dt;
+    unsigned gaps;
+    if (fscanf(e, "%zu %zu %lf %lf %u", &n, &nchan, &t0, &dt, &gaps) != 5) {
+        fclose(e);
+        return print_error("%s: bad expectation\n", name), 1;
+    }
+    opt.gaps_interpolate = gaps > 0;
+    tf_status st = tf_import_csv(csvpath, &opt, &cap, &err);
+    if (st != TF_OK) {
+        fclose(e);
+        return print_error("%s: unexpected error %d: %s\n", name, (int)st, err.msg), 1;
+    }
+    if (cap->n != n || cap->nchan != nchan) {
+        print_error("%s: %zu rows x %zu channels, expected %zu x %zu\n", name, cap->n,
+                    cap->nchan, n, nchan);
+        bad = 1;
+    }
+    /* the time grid the generator wrote, t0 + k*dt: the fit must find it to well
+     * within one printing unit */
+    if (fabs(cap->dt_s - dt) > 1e-6 * dt || fabs(cap->t0_s - t0) > 1e-3 * dt) {
+        print_error("%s: t0 %.12g dt %.12g, expected %.12g %.12g\n", name, cap->t0_s,
+                    cap->dt_s, t0, dt);
+        bad = 1;
+    }
+    size_t filled = 0;
+    for (size_t c = 0; c < nchan; c++) {
+        char nm[TF_NAME_SIZE + 8], un[TF_NAME_SIZE + 8];
+        if (fscanf(e, " %[^\t]\t%[^\n]", nm, un) != 2)
+            bad = 1;
+        if (strcmp(un, "-") == 0)
+            un[0] = '\0';
+        if (c < cap->nchan) {
+            filled += cap->ch[c].gaps_filled;
+            if (strcmp(cap->ch[c].name, nm) != 0 || strcmp(cap->ch[c].unit, un) != 0) {
+                print_error("%s: channel %zu is '%s' [%s], expected '%s' [%s]\n", name, c,
+                            cap->ch[c].name, cap->ch[c].unit, nm, un);
+                bad = 1;
+            }
+        }
+    }
+    if (filled != gaps) {
+        print_error("%s: %zu gaps filled, expected %u\n", name, filled, gaps);
+        bad = 1;
+    }
+    /* reference: the printed numbers read back by Python's float(), scaled, rounded to
+     * float32 by numpy; a scaled value may differ from a product rounded another way by
+     * one float ulp */
+    for (size_t k = 0; k < n && !bad; k++)
+        for (size_t c = 0; c < nchan && !bad; c++) {
+            char hex[64];
+            if (fscanf(e, "%63s", hex) != 1) {
+                bad = 1;
+                break;
+            }
+            float want = (float)strtod(hex, NULL), got = cap->ch[c].samples[k];
+            if (got != want && fabsf(got - want) > 1.2e-7f * fabsf(want)) {
+                print_error("%s: row %zu channel %zu: %a, expected %a\n", name, k, c,
+                            (double)got, (double)want);
+                bad = 1;
+            }
+        }
+    fclose(e);
+    tf_capture_destroy(cap);
+    return bad;
+}
+
+static void test_import_csv_independent_tools(void **state)
+{
+    (void)state;
+    if (!tf_test_have("/usr/bin/python3"))
+        skip();
+    const char *list = tf_test_tmpfile("robust-cases.txt");
+    char listpath[512];
+    snprintf(listpath, sizeof listpath, "%s", list);
+    assert_int_equal(tf_test_system("/usr/bin/python3 '%s' --list > '%s'",
+                                    tf_test_src("tests/support/import_csv_robust.py"), listpath),
+                     0);
+    FILE *f = fopen(listpath, "r");
+    assert_non_null(f);
+    char name[96];
+    int failed = 0, ran = 0;
+    while (fscanf(f, "%95s", name) == 1) {
+        failed += robust_case(name);
+        ran++;
+    }
+    fclose(f);
+    print_message("%d cases from independent tools, %d failed\n", ran, failed);
+    assert_true(ran >= 20);
+    assert_int_equal(failed, 0);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -639,6 +786,7 @@ int main(void)
         cmocka_unit_test(test_import_csv_python_space),
         cmocka_unit_test(test_import_csv_two_threads),
         cmocka_unit_test(test_import_csv_memory_entry),
+        cmocka_unit_test(test_import_csv_independent_tools),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }

@@ -589,6 +589,125 @@ static void test_import_wav_more_formats(void **state)
     tf_capture_destroy(cap);
 }
 
+/* ---- outside references: sound files written by scipy.io.wavfile, Python's wave
+ * module and sox in every container and sample format they offer
+ * (tests/support/import_wav_robust.py names the writer of each case) ---- */
+
+static int wav_robust_case(const char *name)
+{
+    char fname[96], ename[96], path[512], exppath[512];
+    snprintf(fname, sizeof fname, "robust-%s.snd", name);
+    snprintf(ename, sizeof ename, "robust-%s.exp", name);
+    snprintf(path, sizeof path, "%s", tf_test_tmpfile(fname));
+    snprintf(exppath, sizeof exppath, "%s", tf_test_tmpfile(ename));
+    if (tf_test_system("/usr/bin/python3 '%s' %s '%s' '%s'",
+                       tf_test_src("tests/support/import_wav_robust.py"), name, path,
+                       exppath) != 0)
+        return print_error("%s: the generator failed\n", name), 1;
+    FILE *e = fopen(exppath, "r");
+    if (!e)
+        return print_error("%s: no expectation\n", name), 1;
+    char kind[16] = "", fmt[16] = "", sub[16] = "";
+    int bad = 0;
+    tf_capture *cap = NULL;
+    tf_error err;
+    tf_error_clear(&err);
+    if (fscanf(e, "%15s", kind) != 1) {
+        fclose(e);
+        return print_error("%s: empty expectation\n", name), 1;
+    }
+    if (strcmp(kind, "error") == 0) {
+        char text[128];
+        bad = fscanf(e, " %127[^\n]", text) != 1;
+        tf_status st = tf_import_file(path, NULL, &cap, &err);
+        if (bad || st != TF_ERR_DATA || strncmp(err.msg, path, strlen(path)) != 0 ||
+            !strstr(err.msg, text)) {
+            print_error("%s: expected a data error with '%s', got %d '%s'\n", name, text,
+                        (int)st, err.msg);
+            bad = 1;
+        }
+        if (cap)
+            tf_capture_destroy(cap), bad = 1;
+        fclose(e);
+        return bad;
+    }
+    size_t n, nchan;
+    double rate, rel, absol;
+    if (fscanf(e, "%zu %zu %lf %15s %15s %lf %lf", &n, &nchan, &rate, fmt, sub, &rel, &absol) !=
+        7) {
+        fclose(e);
+        return print_error("%s: bad expectation\n", name), 1;
+    }
+    /* through the dispatcher, as the commands read files */
+    tf_status st = tf_import_file(path, NULL, &cap, &err);
+    if (st != TF_OK) {
+        fclose(e);
+        return print_error("%s: unexpected error %d: %s\n", name, (int)st, err.msg), 1;
+    }
+    if (cap->n != n || cap->nchan != nchan || fabs(cap->dt_s * rate - 1) > 1e-12 ||
+        cap->t0_s != 0 || strcmp(cap->dialect.format, fmt) != 0 ||
+        strcmp(cap->dialect.wav_subformat, sub) != 0) {
+        print_error("%s: %zu x %zu at %.9g Hz, %s %s; expected %zu x %zu at %.9g Hz, %s %s\n",
+                    name, cap->n, cap->nchan, 1 / cap->dt_s, cap->dialect.format,
+                    cap->dialect.wav_subformat, n, nchan, rate, fmt, sub);
+        bad = 1;
+    }
+    for (size_t c = 0; c < cap->nchan && !bad; c++) {
+        char want[32];
+        snprintf(want, sizeof want, "ch%zu", c + 1);
+        if (strcmp(cap->ch[c].name, want) != 0 || strcmp(cap->ch[c].unit, "FS") != 0) {
+            print_error("%s: channel %zu is '%s' [%s]\n", name, c, cap->ch[c].name,
+                        cap->ch[c].unit);
+            bad = 1;
+        }
+    }
+    /* reference: the writer's own codes (or sox's decoding of its file) as doubles;
+     * the capture holds float32, so within half a float ulp of the value (the
+     * generator widens this for sox's float files, see there) */
+    for (size_t k = 0; k < n && !bad; k++)
+        for (size_t c = 0; c < nchan && !bad; c++) {
+            char hex[64];
+            if (fscanf(e, "%63s", hex) != 1) {
+                bad = 1;
+                break;
+            }
+            double want = strtod(hex, NULL), got = cap->ch[c].samples[k];
+            if (fabs(got - want) > rel * fabs(want) + absol) {
+                print_error("%s: frame %zu channel %zu: %.9g, expected %.9g\n", name, k, c, got,
+                            want);
+                bad = 1;
+            }
+        }
+    fclose(e);
+    tf_capture_destroy(cap);
+    return bad;
+}
+
+static void test_import_wav_independent_tools(void **state)
+{
+    (void)state;
+    assert_true(tf_test_have("sox"));
+    if (!tf_test_have("/usr/bin/python3"))
+        skip();
+    char list[512];
+    snprintf(list, sizeof list, "%s", tf_test_tmpfile("robust-wav-cases.txt"));
+    assert_int_equal(tf_test_system("/usr/bin/python3 '%s' --list > '%s'",
+                                    tf_test_src("tests/support/import_wav_robust.py"), list),
+                     0);
+    FILE *f = fopen(list, "r");
+    assert_non_null(f);
+    char name[96];
+    int failed = 0, ran = 0;
+    while (fscanf(f, "%95s", name) == 1) {
+        failed += wav_robust_case(name);
+        ran++;
+    }
+    fclose(f);
+    print_message("%d sound files from independent tools, %d failed\n", ran, failed);
+    assert_true(ran >= 20);
+    assert_int_equal(failed, 0);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -603,6 +722,7 @@ int main(void)
         cmocka_unit_test(test_import_wav_more_formats),
         cmocka_unit_test(test_import_wav_two_threads),
         cmocka_unit_test(test_import_wav_fixtures_regenerate),
+        cmocka_unit_test(test_import_wav_independent_tools),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
