@@ -153,7 +153,9 @@ static int refine_chain(const seg_input *in, seg_run *r, size_t j, size_t q, dou
     size_t nfull = 0;
     for (size_t p = j; p <= q; p++)
         nfull += !((p == q && r[q].k_end == SEG_B_EDGE) || r[p].pk < 8 * in->band);
-    if (!nfull || hi > 1.2 * lo || r[j].i1 < r[j].i0 + 10) {
+    /* a chain of 20-sample periods still fits: 5 samples a lobe and 16 in all (checked
+     * by seg_chain_fit) pin a damped sine of known shape */
+    if (!nfull || hi > 1.2 * lo || r[j].i1 < r[j].i0 + 4) {
         return 0;
     }
     med /= (double)nfull;
@@ -425,9 +427,31 @@ tf_status tf_segment_run(const tf_capture *cap, const tf_roles *roles,
         hi = x[i] > hi ? x[i] : hi;
     }
     double peak = fmax(fabs((double)lo), fabs((double)hi));
+    /* Differences over the whole record measure the lobes' slope, not the noise,
+     * when few samples rest between lobes (coarse sampling: 20 samples per period
+     * gave a band above the peak). The rests alone then tell the noise; trusted
+     * only when the quiet window is 8 of their sigmas wide, so it does not clip it. */
+    double quiet = SEG_QUIET_FRACTION * peak;
+    double rest = NAN;
+    double sq = seg_quiet_sigma(x, n, quiet, &rest);
+    /* then a window of 8 of those sigmas: it drops the lobes' first and last samples,
+     * whose steps inflate the estimate when only 3 samples rest between lobes */
+    for (int pass = 0; pass < 2 && isfinite(sq) && sq > 0 && 8 * sq < quiet; pass++) {
+        double s2 = seg_quiet_sigma(x, n, 8 * sq, NULL);
+        if (!isfinite(s2))
+            break;
+        sq = s2;
+    }
+    fprintf(stderr, "DBG sigma %g sq %g quiet %g n %zu\n", sigma, sq, quiet, n);
+    if (isfinite(sq) && sq < sigma && 8 * sq <= quiet)
+        sigma = sq;
     double lsb = ch->stats_valid && ch->stats.lsb > 0 ? ch->stats.lsb : seg_lsb(x, n);
     /* floors: a noiseless record still needs a band above rounding and one code step */
     double band = fmax(k * sigma, fmax(lsb, 1e-3 * peak));
+    /* rests away from zero (a probe offset, reported as an "offset" anomaly) must stay
+     * inside the band, or every dead zone would read as a lobe */
+    if (isfinite(rest) && fabs(rest) + k * sigma > band)
+        band = fabs(rest) + k * sigma + fmax(lsb, 1e-3 * peak);
     r->noise_sigma_a = sigma;
     r->band_a = band;
     if (!(peak > 2 * band)) {

@@ -38,7 +38,13 @@ tf_topology seg_infer_topology(const seg_input *in, const seg_run *r, size_t nr,
     /* the pattern is read on strong lobes only: a ring-down's tail, down in the noise,
      * breaks into fragments with gaps that are not dead zones of a firing sequence */
     size_t same = 0, opp = 0, starts = 0, strong = 0;
-    const float big = (float)(8 * in->band);
+    /* strong: well above the band and at least a fifth of the largest lobe, so that the
+     * pattern does not hang on where the band happens to cut a ring-down's tail (the
+     * lobes of a bridge at Q >= 3 stay within a factor 2 of each other) */
+    float maxpk = 0;
+    for (size_t j = 0; j < nr; j++)
+        maxpk = r[j].pk > maxpk ? r[j].pk : maxpk;
+    const float big = fmaxf((float)(8 * in->band), 0.2f * maxpk);
     for (size_t j = 0; j + 1 < nr; j++) {
         if (!zero_kind(r[j].k_end) || r[j].pk < big || r[j + 1].pk < big)
             continue;
@@ -753,10 +759,17 @@ static tf_status build_bursts(tf_segment_result *r, const lobe_rec *rec)
     seg_vec b;
     seg_vec_init(&b, sizeof(tf_burst));
     tf_burst *cur = NULL;
+    double maxpk = 0;
+    for (size_t j = 0; j < r->nlobes; j++)
+        maxpk = fmax(maxpk, fabs(r->lobes[j].peak_a));
     for (size_t j = 0; j < r->nlobes; j++) {
         tf_lobe *l = &r->lobes[j];
+        /* a ring-down's tail breaks into fragments where the noise dips it below the
+         * band: those stay in the burst; a new excitation rises well above the tail */
         int starts = r->topology == TF_TOPO_RING_DOWN
-                         ? (j == 0 || zero_kind(rec[j].k0))
+                         ? (j == 0 || (zero_kind(rec[j].k0) &&
+                                       fabs(l->peak_a) > 2 * fabs(r->lobes[j - 1].peak_a) &&
+                                       fabs(l->peak_a) >= 0.2 * maxpk))
                          : tf_device_is_thyristor(l->device);
         if (starts) {
             cur = seg_vec_push(&b);

@@ -7,6 +7,8 @@
 
 /* Default hysteresis band in noise sigmas (docs/segmenter.md explains the choice). */
 #define SEG_BAND_K 4.0
+/* rests (dead zones) for the noise estimate: |i| within this fraction of the peak */
+#define SEG_QUIET_FRACTION 0.1
 
 /* Records at least this long are scanned, fitted and measured on two threads. */
 #define SEG_THREAD_SAMPLES 2000000
@@ -57,6 +59,10 @@ typedef struct seg_clip {
 /* Noise sigma from the median absolute deviation of first differences
  * (1.4826 * MAD / sqrt 2); a bounded, evenly spread subset keeps it O(1) in memory. */
 double seg_noise_sigma(const float *x, size_t n);
+/* Robust noise sigma of the sample pairs within +/-quiet of zero (dead zones and
+ * rests); NAN when too few pairs are quiet. rest (may be NULL) gets the median level
+ * of those samples (NAN then too). */
+double seg_quiet_sigma(const float *x, size_t n, double quiet, double *rest);
 
 /* Quantisation step visible in x (0 when none): the smallest non-zero difference
  * when most differences are whole multiples of it. */

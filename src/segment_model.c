@@ -463,7 +463,9 @@ static int chain_step(const float *x, size_t k0, size_t k1, size_t stride,
         jtj[p * m + np + 1] = jtj[(np + 1) * m + p] = g1;
         jtj[p * m + np + 2] = jtj[(np + 2) * m + p] = g2;
     }
-    if (used < 4 * m)
+    /* three samples a parameter: a two-lobe chain at 20 samples per period (18 samples
+     * for 5 parameters) still fits, and the boundary checks of refine_chain guard it */
+    if (used < 3 * m)
         return -1;
     if (linear_only) {
         for (size_t p = 0; p < np; p++) {

@@ -58,6 +58,53 @@ double seg_noise_sigma(const float *x, size_t n)
     return 1.482602218505602 * mad / sqrt(2.0);
 }
 
+/* Noise from the quiet samples only: first differences of evenly spread sample
+ * pairs that both lie within +/-quiet. When fewer than QUIET_MIN pairs (or 1 in
+ * 64 of those looked at) are quiet, NAN: the record has no rest to measure. */
+#define QUIET_MIN 32
+
+double seg_quiet_sigma(const float *x, size_t n, double quiet, double *rest)
+{
+    if (rest)
+        *rest = NAN;
+    if (n < 3 || !(quiet > 0))
+        return NAN;
+    size_t m = n - 1 < NOISE_SUBSET ? n - 1 : NOISE_SUBSET, q = 0;
+    double *d = malloc(m * sizeof *d);
+    if (!d)
+        return NAN;
+    const float lim = (float)quiet;
+    for (size_t j = 0; j < m; j++) {
+        size_t k = (size_t)((double)j * (double)(n - 1) / (double)m);
+        if (fabsf(x[k]) <= lim && fabsf(x[k + 1]) <= lim)
+            d[q++] = (double)x[k + 1] - (double)x[k];
+    }
+    double sigma = NAN;
+    if (q >= QUIET_MIN && q >= m / 64) {
+        if (rest) {
+            /* the level the quiet samples rest at: 0, or a probe offset */
+            size_t r = 0;
+            for (size_t j = 0; j < m && r < q; j++) {
+                size_t k = (size_t)((double)j * (double)(n - 1) / (double)m);
+                if (fabsf(x[k]) <= lim && fabsf(x[k + 1]) <= lim)
+                    d[r++] = x[k];
+            }
+            *rest = gsl_stats_median(d, 1, q);
+            for (size_t j = 0, r2 = 0; j < m && r2 < q; j++) {
+                size_t k = (size_t)((double)j * (double)(n - 1) / (double)m);
+                if (fabsf(x[k]) <= lim && fabsf(x[k + 1]) <= lim)
+                    d[r2++] = (double)x[k + 1] - (double)x[k];
+            }
+        }
+        double med = gsl_stats_median(d, 1, q);
+        for (size_t j = 0; j < q; j++)
+            d[j] = fabs(d[j] - med);
+        sigma = 1.482602218505602 * gsl_stats_median(d, 1, q) / sqrt(2.0);
+    }
+    free(d);
+    return sigma;
+}
+
 tf_status seg_scan(const float *x, size_t n, double band, seg_vec *exc)
 {
     const float b = (float)band;

@@ -381,6 +381,49 @@ static void test_segment_overlapping_gates(void **state)
     overlapping(1);
 }
 
+/* Coarse sampling, 20 samples per resonant period: the first differences of the whole
+ * record then measure the lobes' slope; the noise must come from the dead zones. */
+static void test_segment_coarse_sampling(void **state)
+{
+    (void)state;
+    segw_cfg c;
+    segw_defaults(&c);
+    segw_out w;
+    assert_int_equal(segw_make(&c, &w), 0);
+    double fd = w.wd / (2 * M_PI);
+    segw_free(&w);
+    c.fs = 20 * fd;
+    c.noise = 0.2;
+    c.duration_s = 8e-3; /* about 40 dead zones of 3 samples each */
+    assert_int_equal(segw_make(&c, &w), 0);
+    tf_segment_result *r = segment(&w, TF_TOPO_UNKNOWN);
+    /* reference: the generator's Gaussian sigma (a MAD estimate from about a hundred
+     * dead-zone samples scatters by about 15 %) */
+    assert_true(fabs(r->noise_sigma_a - w.noise) < 0.3 * w.noise);
+    assert_int_equal(r->topology, TF_TOPO_HALF_BRIDGE);
+    assert_int_equal(r->mode, TF_MODE_NON_OVERLAPPING);
+    /* every whole lobe is pi / wd long (textbook series RLC response) to a fraction of
+     * the 1/20-period sample step (the chain model pins them within 0.01 sample) */
+    size_t whole = 0, fine = 0;
+    for (size_t j = 0; j < r->nlobes; j++) {
+        const tf_lobe *l = &r->lobes[j];
+        if (l->partial)
+            continue;
+        whole++;
+        if (getenv("SEG_DEBUG"))
+            fprintf(stderr, "lobe %zu %s err %g samples\n", j, tf_device_name(l->device),
+                    ((l->end_s - l->start_s) - M_PI / w.wd) / w.cap->dt_s);
+        double e = fabs((l->end_s - l->start_s) - M_PI / w.wd);
+        assert_true(e < 0.5 * w.cap->dt_s);
+        fine += e < 0.05 * w.cap->dt_s;
+    }
+    assert_true(whole >= 8);
+    /* a burst whose chain fit is refused keeps its rough line-through-samples bounds */
+    assert_true(fine >= whole * 9 / 10);
+    tf_segment_free(r);
+    segw_free(&w);
+}
+
 static void test_segment_ring_down(void **state)
 {
     (void)state;
@@ -986,6 +1029,7 @@ int main(void)
         cmocka_unit_test(test_segment_continuous),
         cmocka_unit_test(test_segment_overlapping_current_only),
         cmocka_unit_test(test_segment_overlapping_gates),
+        cmocka_unit_test(test_segment_coarse_sampling),
         cmocka_unit_test(test_segment_ring_down),
         cmocka_unit_test(test_segment_clipped_current),
         cmocka_unit_test(test_segment_unclipped_quantised_peaks_not_clipped),
