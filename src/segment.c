@@ -442,7 +442,6 @@ tf_status tf_segment_run(const tf_capture *cap, const tf_roles *roles,
             break;
         sq = s2;
     }
-    fprintf(stderr, "DBG sigma %g sq %g quiet %g n %zu\n", sigma, sq, quiet, n);
     if (isfinite(sq) && sq < sigma && 8 * sq <= quiet)
         sigma = sq;
     double lsb = ch->stats_valid && ch->stats.lsb > 0 ? ch->stats.lsb : seg_lsb(x, n);
