@@ -651,6 +651,69 @@ static void test_fit_simulator_overlapping(void **state)
 }
 
 /* Inputs that are not bursts fail cleanly (an error or a finite result), never hang. */
+/* A ring-down netlist written by hand (not by tests/support/spice.c): other values
+ * (L 20 uH, C 4 uF, R 0.1 ohm + a 1 mohm switch, Q about 22, 112 samples a period),
+ * resampled and noised by numpy, named i_coil. */
+static void test_fit_ngspice_handwritten_ringdown(void **state)
+{
+    (void)state;
+    if (!tf_test_have("ngspice") || !tf_test_have("/usr/bin/python3")) {
+        print_message("skipped: ngspice or /usr/bin/python3 missing\n");
+        skip();
+    }
+    char net[8192];
+    const char *dat = tf_test_tmpfile("rd_hand.dat");
+    snprintf(net, sizeof net,
+             "* precharged C released through a switch into L-R\n"
+             "C1 a 0 4u IC=300\nS1 a b ctl 0 sw1\n"
+             ".model sw1 SW(VT=0.5 VH=0.1 RON=1m ROFF=1e9)\n"
+             "Vctl ctl 0 PULSE(0 1 10u 1n 1n 10 20)\nL1 b c 20u IC=0\nR1 c 0 0.1\n"
+             ".options reltol=1e-6 abstol=1e-9\n.tran 0.5u 2m 0 0.1u uic\n"
+             ".control\nrun\nset wr_singlescale\nset wr_vecnames\nwrdata %s i(L1)\nquit 0\n"
+             ".endc\n.end\n", dat);
+    const char *cir = tf_test_tmpfile("rd_hand.cir");
+    assert_int_equal(tf_test_write(cir, net), 0);
+    assert_int_equal(tf_test_system("ngspice -b '%s' > /dev/null 2>&1", cir), 0);
+    const char *csv = tf_test_tmpfile("rd_hand.csv");
+    assert_int_equal(
+        tf_test_system("/usr/bin/python3 -c \"import numpy as np;"
+                       "d=np.loadtxt('%s',skiprows=1);t=np.arange(0,2e-3,0.5e-6);"
+                       "i=np.interp(t,d[:,0],d[:,1])+np.random.default_rng(3).normal(0,0.3,t.size);"
+                       "f=open('%s','w');f.write('time (s),i_coil (A)\\n');"
+                       "np.savetxt(f,np.column_stack([t,i]),delimiter=',',fmt='%%.9g')\"",
+                       dat, csv),
+        0);
+    tf_import_options io;
+    tf_import_options_init(&io);
+    tf_capture *cap = NULL;
+    tf_error e;
+    assert_int_equal(tf_import_csv(csv, &io, &cap, &e), TF_OK);
+    tf_analysis_options o;
+    tf_analysis_options_init(&o, NULL);
+    o.roles.current = "i_coil";
+    o.fit.capacitance_f = 4e-6;
+    o.skip_spectrum = 1;
+    tf_analysis *an = NULL;
+    assert_int_equal(tf_analysis_run(cap, NULL, &o, &an, &e), TF_OK);
+    assert_int_equal(an->seg->topology, TF_TOPO_RING_DOWN);
+    assert_int_equal(an->seg->nbursts, 1);
+    assert_non_null(an->fit);
+    const tf_fit_result *r = an->fit;
+    /* source: textbook series RLC response, R = 0.1 + 0.001 ohm (switch RON) */
+    double L = 20e-6, C = 4e-6, R = 0.101, w0 = 1 / sqrt(L * C), a = R / (2 * L);
+    double fd = sqrt(w0 * w0 - a * a) / (2 * M_PI);
+    print_message("hand ring-down: fd %g (%g), alpha %g (%g), L %g, R %g\n",
+                  r->damped_frequency_hz.value, fd, r->decay_per_s.value, a,
+                  r->inductance_h.value, r->resistance_ohm.value);
+    assert_true(tf_test_reldiff(r->damped_frequency_hz.value, fd) < 2e-4);
+    assert_true(tf_test_reldiff(r->decay_per_s.value, a) < 0.01);
+    assert_true(tf_test_reldiff(r->q.value, w0 * L / R) < 0.01);
+    assert_true(tf_test_reldiff(r->inductance_h.value, L) < 1e-3);
+    assert_true(tf_test_reldiff(r->resistance_ohm.value, R) < 0.01);
+    tf_analysis_free(an);
+    tf_capture_destroy(cap);
+}
+
 static void test_fit_dsfit_garbage(void **state)
 {
     (void)state;
@@ -689,6 +752,7 @@ int main(void)
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_fit_dsfit_exact),
         cmocka_unit_test(test_fit_dsfit_errors),
+        cmocka_unit_test(test_fit_ngspice_handwritten_ringdown),
         cmocka_unit_test(test_fit_dsfit_garbage),
         cmocka_unit_test(test_fit_dsfit_uncertainty),
         cmocka_unit_test(test_fit_q_log_decrement),
