@@ -815,6 +815,12 @@ tf_status tf_csv_detect(const tf_csv_source *src, const tf_import_options *opt,
     }
     lay->header_line = header < h->nlines ? header + 1 : 0;
     lay->units_line = units < h->nlines ? units + 1 : 0;
+    if (header < h->nlines && comment_skip(h, header)) {
+        const char *c = h->buf + h->start[header];
+        while (*c == ' ' || *c == '\t')
+            c++;
+        lay->comment = *c;
+    }
     lay->data_line = first + 1;
     lay->data_offset = h->start[first];
     size_t meta_end = header < h->nlines ? header : first;

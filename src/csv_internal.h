@@ -53,6 +53,7 @@ typedef struct tf_csv_layout {
     tf_csv_column *cols;           /* ncols entries (malloc'd) */
     size_t header_line;            /* 1-based; 0 when none */
     size_t units_line;             /* 1-based line of a units row under the header; 0: none */
+    char comment;                  /* the header's comment mark ('#' or '%'); 0: not commented */
     size_t data_line;              /* 1-based line of the first data row */
     size_t data_offset;            /* byte offset of that line */
     size_t metadata_lines;         /* non-blank lines before the header/data */

@@ -62,6 +62,9 @@ typedef struct csv_worker {
     tf_time_acc time;
     size_t *gaps, *gap_line;             /* per channel */
     tf_status status;
+    int halt;                            /* status set or comment_row: ignore further fields */
+    int comment_row;                     /* the row's first field starts with the comment mark */
+    char comment;                        /* '#', or the header's own comment mark */
     char msg[TF_ERROR_MSG_SIZE];
 } csv_worker;
 
@@ -80,6 +83,18 @@ static void fail(csv_worker *w, tf_status code, size_t col, const char *fmt, ...
     vsnprintf(w->msg + k, sizeof w->msg - (size_t)k, fmt, ap);
     va_end(ap);
     w->status = code;
+    w->halt = 1;
+}
+
+/* A row whose first field starts with the comment mark is skipped (numpy's
+ * footer=). Checked only where a field is not a number, so good rows pay nothing. */
+static int comment_start(csv_worker *w, size_t c, const char *s, size_t len)
+{
+    if (c != 0 || len == 0 || s[0] != w->comment)
+        return 0;
+    w->comment_row = 1;
+    w->halt = 1;
+    return 1;
 }
 
 static void gap(csv_worker *w, int m, size_t c, const char *s, size_t len)
@@ -105,6 +120,8 @@ static void time_field(csv_worker *w, size_t c, const char *s, size_t len)
     char ex[64];
     if (len == 0 || tf_csv_time_value(s, len, lay->decimal, lay->time_sig, &v, &q) != 0 ||
         !isfinite(v)) {
+        if (comment_start(w, c, s, len))
+            return;
         fail(w, TF_ERR_DATA, c + 1, "expected a time value (a finite number), found '%s'",
              tf_error_excerpt(ex, sizeof ex, s, (unsigned)len, TF_CSV_EXCERPT));
         return;
@@ -117,6 +134,8 @@ static void time_field(csv_worker *w, size_t c, const char *s, size_t len)
 static void bad_number(csv_worker *w, size_t c, const char *s, size_t len)
 {
     char ex[64];
+    if (comment_start(w, c, s, len))
+        return;
     fail(w, TF_ERR_DATA, c + 1, "expected a number, found '%s'",
          tf_error_excerpt(ex, sizeof ex, s, (unsigned)len, TF_CSV_EXCERPT));
 }
@@ -125,7 +144,7 @@ static void on_field(void *data, size_t len, void *ctx)
 {
     csv_worker *w = ctx;
     const char *s = data;
-    if (w->status || (len == 0 && w->space_mode))
+    if (w->halt || (len == 0 && w->space_mode))
         return;
     size_t c = w->col++;
     if (c >= w->ncols) {
@@ -137,6 +156,8 @@ static void on_field(void *data, size_t len, void *ctx)
     }
     int m = w->map[c];
     if (m < 0 && m != MAP_TIME) {
+        if (comment_start(w, c, s, len))
+            return;
         if (m == MAP_EMPTY && len != 0) {
             char ex[64];
             fail(w, TF_ERR_DATA, c + 1, "expected an empty field (the column has no name and "
@@ -189,7 +210,9 @@ static void on_row(int term, void *ctx)
     int trail = w->trail;
     w->col = 0;
     w->trail = 0;
-    if (fields == 0 || w->status) {
+    if (fields == 0 || w->halt) {
+        if (w->comment_row)
+            w->halt = w->comment_row = 0;
         w->have_t = 0;
         w->line++;
         return;
@@ -536,6 +559,7 @@ static tf_status run_parse(const tf_csv_source *src, const tf_csv_layout *lay, c
         w[i].ncols = lay->ncols;
         w[i].space_mode = lay->space_mode;
         w[i].decimal = lay->decimal;
+        w[i].comment = lay->comment ? lay->comment : '#';
         w[i].gaps = calloc(2 * (job->nout ? job->nout : 1), sizeof(size_t));
         if (!w[i].gaps)
             st = tf_error_set(err, TF_ERR_NOMEM, "out of memory");

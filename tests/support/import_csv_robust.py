@@ -127,7 +127,24 @@ def case_np_footer_semicolon(out, e):
                         header='invented rig 3\nt (s);v (V);i (A)', footer='end of record',
                         comments='% ')
     open(out, 'w').write(text)
-    e.error('DATA', 203, 1, "end of record")
+    vals = parse_back([r for r in rows_of(text, ';') if not r[0].startswith('%')])
+    e.ok(vals[:, 1:], -0.0001, 1e-6, ['v', 'i'], ['V', 'A'])
+
+
+def case_np_hash_comment_inside(out, e):
+    # '#' lines inside and after the data (as numpy.loadtxt skips them)
+    t, v = signals(100, 1, 0.0, 1e-6)
+    rows = ['%.6e,%.4e' % (t[k], v[k, 0]) for k in range(100)]
+    lines = ['t,a'] + rows[:40] + ['# pause marker (invented)'] + rows[40:] + ['# end']
+    open(out, 'w').write('\n'.join(lines) + '\n')
+    e.ok(parse_back([r.split(',')[1:] for r in rows]), 0.0, 1e-6, ['a'], [''])
+
+
+def case_inst_text_after_data(out, e):
+    # free text after the data is not a comment: an error at its line
+    rows = ['%.6e,%.4e,%.4e' % (k * 1e-6, k * 0.5, -k * 0.25) for k in range(20)]
+    open(out, 'w').write('\n'.join(['t,a,b'] + rows + ['end of record']) + '\n')
+    e.error('DATA', 22, 1, "expected a time value (a finite number), found 'end of record'")
 
 
 def case_np_ms_time(out, e):
