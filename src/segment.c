@@ -430,19 +430,23 @@ tf_status tf_segment_run(const tf_capture *cap, const tf_roles *roles,
     /* Differences over the whole record measure the lobes' slope, not the noise,
      * when few samples rest between lobes (coarse sampling: 20 samples per period
      * gave a band above the peak). The rests alone then tell the noise; trusted
-     * only when the quiet window is 8 of their sigmas wide, so it does not clip it. */
-    double quiet = SEG_QUIET_FRACTION * peak;
-    double rest = NAN;
+     * only when the quiet window is 8 of their sigmas wide, so it does not clip it:
+     * a window that proves too narrow for the noise is widened (at most to 0.4 of
+     * the peak), one much wider than the noise is narrowed, which drops the lobes'
+     * first and last samples whose steps inflate the estimate. */
+    double quiet = SEG_QUIET_FRACTION * peak, rest = NAN;
     double sq = seg_quiet_sigma(x, n, quiet, &rest);
-    /* then a window of 8 of those sigmas: it drops the lobes' first and last samples,
-     * whose steps inflate the estimate when only 3 samples rest between lobes */
-    for (int pass = 0; pass < 2 && isfinite(sq) && sq > 0 && 8 * sq < quiet; pass++) {
-        double s2 = seg_quiet_sigma(x, n, 8 * sq, NULL);
+    for (int pass = 0; pass < 4 && isfinite(sq) && sq > 0; pass++) {
+        double wnew = 8 * sq;
+        if (wnew > 0.4 * peak || fabs(wnew - quiet) < 0.05 * quiet)
+            break;
+        double s2 = seg_quiet_sigma(x, n, wnew, NULL);
         if (!isfinite(s2))
             break;
+        quiet = wnew;
         sq = s2;
     }
-    if (isfinite(sq) && sq < sigma && 8 * sq <= quiet)
+    if (isfinite(sq) && sq < sigma && 8 * sq <= 1.1 * quiet)
         sigma = sq;
     double lsb = ch->stats_valid && ch->stats.lsb > 0 ? ch->stats.lsb : seg_lsb(x, n);
     /* floors: a noiseless record still needs a band above rounding and one code step */

@@ -506,7 +506,7 @@ static int chain_step(const float *x, size_t k0, size_t k1, size_t stride,
 int seg_chain_fit(const float *x, size_t k0, size_t k1, const seg_clip *clips, size_t nclips,
                   size_t np, const double *amp0, int ts_only, double *ts, double *w, double *a)
 {
-    if (np < 1 || np > CHAIN_MAX || k1 <= k0 + 16 || !(*w > 0))
+    if (np < 1 || np > CHAIN_MAX || k1 <= k0 + 12 || !(*w > 0))
         return -1;
     double amp[CHAIN_MAX], d[CHAIN_MAX + 3];
     double t = *ts, ww = *w, aa = *a;

@@ -424,6 +424,128 @@ static void test_segment_coarse_sampling(void **state)
     segw_free(&w);
 }
 
+/* ---- captures written by numpy (tests/support/segment_numpy.py) ---------------- */
+
+typedef struct np_case {
+    double fd, q, spp;
+    int ncyc;
+    double noise, offset;
+    const char *unit;
+    double sign, phase_s;
+} np_case;
+
+static tf_capture *np_capture(const np_case *c, const char *name)
+{
+    const char *csv = tf_test_tmpfile(name);
+    int st = tf_test_system("/usr/bin/python3 '%s' '%s' %.17g %.17g %.17g %d %.17g %.17g %s %g %.17g",
+                            tf_test_src("tests/support/segment_numpy.py"), csv, c->fd, c->q,
+                            c->spp, c->ncyc, c->noise, c->offset, c->unit, c->sign, c->phase_s);
+    assert_int_equal(st, 0);
+    tf_import_options io;
+    tf_import_options_init(&io);
+    tf_capture *cap = NULL;
+    tf_error e;
+    assert_int_equal(tf_import_csv(csv, &io, &cap, &e), TF_OK);
+    return cap;
+}
+
+/* Every whole lobe pi / wd long (source: the damped sine numpy wrote) within tol
+ * samples; returns the number of whole lobes. */
+static size_t np_check_lobes(const tf_segment_result *r, const np_case *c, double dt, double tol)
+{
+    size_t whole = 0;
+    for (size_t j = 0; j < r->nlobes; j++) {
+        const tf_lobe *l = &r->lobes[j];
+        if (l->partial)
+            continue;
+        whole++;
+        double e = fabs((l->end_s - l->start_s) - 0.5 / c->fd) / dt;
+        if (e > tol)
+            print_message("lobe %zu: %.3g samples off\n", j, e);
+        assert_true(e <= tol);
+    }
+    return whole;
+}
+
+static tf_segment_result *np_segment(const tf_capture *cap)
+{
+    tf_roles roles;
+    tf_error e;
+    assert_int_equal(tf_roles_resolve(cap, NULL, NULL, &roles, &e), TF_OK);
+    tf_segment_result *r = NULL;
+    tf_status st = tf_segment_run(cap, &roles, NULL, &r, &e);
+    if (st != TF_OK)
+        print_message("segment: %s\n", e.msg);
+    assert_int_equal(st, TF_OK);
+    return r;
+}
+
+static void test_segment_numpy_sampling_range(void **state)
+{
+    (void)state;
+    if (!tf_test_have("/usr/bin/python3"))
+        skip();
+    /* 20, 200 and 2000 samples a period, fd 500 Hz to 50 kHz, Q 3 to 30; noiseless, so
+     * the boundaries must be exact to a small fraction of a sample */
+    static const np_case cases[] = {
+        {10e3, 8, 20, 8, 0, 0, "A", 1, 0},    {500, 3, 200, 4, 0, 0, "A", 1, 0},
+        {50e3, 30, 200, 8, 0, 0, "A", 1, 0},  {10e3, 8, 2000, 3, 0, 0, "A", 1, 0},
+        {10e3, 8, 20, 8, 0, 0, "mA", -1, 0},  {10e3, 8, 20, 8, 0, 0, "kA", 1, 0},
+    };
+    for (size_t k = 0; k < sizeof cases / sizeof cases[0]; k++) {
+        tf_capture *cap = np_capture(&cases[k], "np_range.csv");
+        tf_segment_result *r = np_segment(cap);
+        print_message("case %zu: %zu lobes, band %g A\n", k, r->nlobes, r->band_a);
+        assert_int_equal(r->topology, TF_TOPO_HALF_BRIDGE);
+        assert_int_equal(r->mode, TF_MODE_NON_OVERLAPPING);
+        assert_true(np_check_lobes(r, &cases[k], cap->dt_s, 0.05) >= 4 * (size_t)cases[k].ncyc - 2);
+        /* source: the generator's firing rate, 0.4 fd per thyristor pair */
+        assert_true(fabs(r->output_frequency_hz.median - 0.4 * cases[k].fd) < 1e-3 * cases[k].fd);
+        tf_segment_free(r);
+        tf_capture_destroy(cap);
+    }
+}
+
+static void test_segment_numpy_noise_and_offset(void **state)
+{
+    (void)state;
+    if (!tf_test_have("/usr/bin/python3"))
+        skip();
+    /* 2 A of Gaussian noise on 100 A at 20 samples a period: the band comes from the
+     * dead zones (reference: numpy's sigma) and the lobes stay within a sample */
+    np_case c = {10e3, 8, 20, 30, 2.0, 0, "A", 1, 0};
+    tf_capture *cap = np_capture(&c, "np_noise.csv");
+    tf_segment_result *r = np_segment(cap);
+    assert_true(fabs(r->noise_sigma_a - 2.0) < 0.4);
+    assert_true(np_check_lobes(r, &c, cap->dt_s, 1.0) >= 100);
+    tf_segment_free(r);
+    tf_capture_destroy(cap);
+
+    /* a 3 A probe offset on a noiseless record: the rests stay inside the band (no
+     * phantom lobes from the dead zones) and the offset is reported with its size */
+    np_case o = {10e3, 8, 200, 8, 0, 3.0, "A", 1, 0};
+    cap = np_capture(&o, "np_offset.csv");
+    r = np_segment(cap);
+    assert_int_equal(r->nlobes, 32);
+    int found = 0;
+    for (size_t a = 0; a < r->nanomalies; a++)
+        found |= strcmp(r->anomalies[a].kind, "offset") == 0 &&
+                 strstr(r->anomalies[a].text, "3 A") != NULL;
+    assert_true(found);
+    tf_segment_free(r);
+    tf_capture_destroy(cap);
+
+    /* three firing cycles, the record starting 30 us into a lobe */
+    np_case m = {10e3, 8, 200, 3, 0, 0, "A", 1, -30e-6};
+    cap = np_capture(&m, "np_mid.csv");
+    r = np_segment(cap);
+    assert_true(r->nlobes >= 10);
+    assert_true(r->lobes[0].partial);
+    assert_true(np_check_lobes(r, &m, cap->dt_s, 0.05) >= 9);
+    tf_segment_free(r);
+    tf_capture_destroy(cap);
+}
+
 static void test_segment_ring_down(void **state)
 {
     (void)state;
@@ -1030,6 +1152,8 @@ int main(void)
         cmocka_unit_test(test_segment_overlapping_current_only),
         cmocka_unit_test(test_segment_overlapping_gates),
         cmocka_unit_test(test_segment_coarse_sampling),
+        cmocka_unit_test(test_segment_numpy_sampling_range),
+        cmocka_unit_test(test_segment_numpy_noise_and_offset),
         cmocka_unit_test(test_segment_ring_down),
         cmocka_unit_test(test_segment_clipped_current),
         cmocka_unit_test(test_segment_unclipped_quantised_peaks_not_clipped),
