@@ -621,7 +621,7 @@ static void test_import_csv_memory_entry(void **state)
  * Returns 0 when the importer did the right thing, else prints why. */
 static int robust_case(const char *name)
 {
-    char csvname[96], expname[96];
+    char csvname[128], expname[128];
     snprintf(csvname, sizeof csvname, "robust-%s.csv", name);
     snprintf(expname, sizeof expname, "robust-%s.exp", name);
     const char *p = tf_test_tmpfile(csvname);

@@ -595,7 +595,7 @@ static void test_import_wav_more_formats(void **state)
 
 static int wav_robust_case(const char *name)
 {
-    char fname[96], ename[96], path[512], exppath[512];
+    char fname[128], ename[128], path[512], exppath[512];
     snprintf(fname, sizeof fname, "robust-%s.snd", name);
     snprintf(ename, sizeof ename, "robust-%s.exp", name);
     snprintf(path, sizeof path, "%s", tf_test_tmpfile(fname));

@@ -5,7 +5,8 @@ Usage: import_wav_robust.py CASE OUT OUT.expected
        import_wav_robust.py --list
 
 Writers: scipy.io.wavfile (int16, int32, float32, float64, 1..8 channels), Python's
-wave module (8-bit unsigned, 16-bit, 24-bit) and sox (WAV, FLAC, W64, AIFF, AU, CAF
+wave module (8-bit unsigned, 16-bit, 24-bit), struct (an RF64 file laid out as EBU
+Tech 3306 defines it; sox has no RF64 writer) and sox (WAV, FLAC, W64, AIFF, AU, CAF
 at 8/16/24/32 bits and float, 1..8 channels). OUT.expected is
 
     ok FRAMES CHANNELS RATE FORMAT SUBFORMAT REL_TOL ABS_TOL
@@ -116,6 +117,25 @@ def sox_case(ext, args, fmt, sub, chans, rate=16000, frames=1000):
     return run
 
 
+def case_rf64_by_hand(out, exp):
+    # RF64 (EBU Tech 3306, an open standard) written with struct: 'RF64' with the
+    # 32-bit sizes set to 0xFFFFFFFF and the real sizes in the 'ds64' chunk
+    import struct
+    rate, chans, frames = 50000, 3, 700
+    x = sig(frames, chans, rate, seed=21)
+    codes = np.round(x * 32767).astype('<i2')
+    data = codes.tobytes()
+    fmt = struct.pack('<HHIIHH', 1, chans, rate, rate * chans * 2, chans * 2, 16)
+    body = (b'WAVE' + b'ds64' + struct.pack('<IQQQI', 28, 0, len(data), frames, 0)
+            + b'fmt ' + struct.pack('<I', len(fmt)) + fmt
+            + b'data' + struct.pack('<I', 0xFFFFFFFF) + data)
+    riff_size = len(body)
+    body = body.replace(struct.pack('<IQQQI', 28, 0, len(data), frames, 0),
+                        struct.pack('<IQQQI', 28, riff_size, len(data), frames, 0), 1)
+    open(out, 'wb').write(b'RF64' + struct.pack('<I', 0xFFFFFFFF) + body)
+    write_exp(exp, codes.astype(np.float64) / 32768, rate, 'rf64', 'PCM_16')
+
+
 def case_wave_truncated(out, exp):
     # Python's wave writes the sizes; the copy then loses its last 3 bytes (mid-frame)
     wave_case(2, 2)(out, exp)
@@ -149,6 +169,7 @@ CASES = {
     'sox_aiff_8': sox_case('aiff', ['-b', '8'], 'aiff', 'PCM_S8', 1),
     'sox_au_16_3ch': sox_case('au', ['-b', '16', '-e', 'signed-integer'], 'au', 'PCM_16', 3),
     'sox_caf_float': sox_case('caf', ['-b', '32', '-e', 'floating-point'], 'caf', 'FLOAT', 2),
+    'rf64_by_hand': case_rf64_by_hand,
     'wave_truncated': case_wave_truncated,
 }
 
