@@ -131,6 +131,22 @@ def case_np_footer_semicolon(out, e):
     e.ok(vals[:, 1:], -0.0001, 1e-6, ['v', 'i'], ['V', 'A'])
 
 
+def case_np_large_two_parts(out, e):
+    # above 8 MiB the importer splits the data between two parser threads: a commented
+    # header, '#' lines in both halves and a footer, two trailing empty columns, repr-
+    # printed time from t0 + k*dt crossing zero
+    n = 230000
+    t, v = signals(n, 2, -1e-3, 1e-8, seed=4)
+    body = savetxt_text(np.column_stack([t, v]), fmt=['%r', '%.6e', '%.6e'], delimiter=',')
+    lines = [ln + ',,' for ln in body.splitlines()]
+    for at in (n // 3, 2 * n // 3):
+        lines.insert(at, '# marker (invented)')
+    text = '# t [s],v_out [V],i_load [A],,\n' + '\n'.join(lines) + '\n# end of record\n'
+    open(out, 'w').write(text)
+    vals = parse_back([ln.split(',')[:3] for ln in lines if not ln.startswith('#')])
+    e.ok(vals[:, 1:], -1e-3, 1e-8, ['v_out', 'i_load'], ['V', 'A'])
+
+
 def case_np_hash_comment_inside(out, e):
     # '#' lines inside and after the data (as numpy.loadtxt skips them)
     t, v = signals(100, 1, 0.0, 1e-6)
