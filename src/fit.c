@@ -32,6 +32,7 @@ typedef struct job_ctx {
     double c_f, l_h;      /* known C or L (NAN when not) */
     tf_fit_burst *out;
     int multi_lobe;       /* some burst has two or more lobes */
+    int probe_offset;     /* the segmenter found the current resting away from zero */
     size_t longest;       /* samples of the longest burst (ring-down: fragments are short) */
     lobe_fit *lobes;
     size_t njobs;
@@ -556,6 +557,8 @@ tf_status tf_fit_run(const tf_capture *cap, const tf_roles *roles, const tf_segm
                    (seg->topology == TF_TOPO_FULL_BRIDGE ? 2.0 : 1.0);
     c.out = fb;
     c.lobes = lf;
+    for (size_t k = 0; k < seg->nanomalies; k++)
+        c.probe_offset |= strcmp(seg->anomalies[k].kind, "offset") == 0;
     for (size_t k = 0; k < nb; k++) {
         c.multi_lobe |= seg->bursts[k].nlobes >= 2;
         const size_t len = seg->bursts[k].i1 > seg->bursts[k].i0 ? seg->bursts[k].i1 - seg->bursts[k].i0 : 0;
@@ -594,6 +597,11 @@ tf_status tf_fit_run(const tf_capture *cap, const tf_roles *roles, const tf_segm
         return TF_ERR_DATA;
     }
     summarise_ringdown(r, &c, fb, nb, scratch);
+    if (c.probe_offset)
+        /* an offset term in the burst fits does not help: the lobe boundaries the
+         * fits start from are shifted too (a 3 % offset moved fd by 5 %) */
+        add_note(r, "%s", "the current rests away from zero (offset anomaly): fd, alpha and Q "
+                          "are biased; correct the probe with --offset NAME=VALUE and rerun");
     memset(&r->lobes, 0, sizeof r->lobes);
     lobe_stats(lf, nl, scratch, &r->lobes);
     free(lf);

@@ -153,6 +153,13 @@ static const char *si(char *buf, double v, const char *unit)
     return tf_si_format(buf, 32, v, unit, 4);
 }
 
+/* An instant on the record's time axis: the rounding left by a time column that starts
+ * at 0 (1e-22 s) is printed as 0, not as yoctoseconds. */
+static const char *at(char *buf, double t)
+{
+    return si(buf, fabs(t) < 1e-15 ? 0.0 : t, "s");
+}
+
 static void print_roles(FILE *out, const tf_capture *cap, const tf_roles *r)
 {
     const int idx[] = {r->current, r->voltage, r->cap_voltage, r->switch_voltage,
@@ -198,7 +205,7 @@ static void print_turnoff(FILE *out, const tf_segment_result *s, const tf_design
     const tf_cycle *cy = &s->cycles[best];
     fprintf(out, "Shortest turn-off time available: %s (%s fired at %s)\n",
             si(a, cy->turnoff_available_s, "s"), tf_device_name(cy->thyristor),
-            si(b, cy->start_s, "s"));
+            at(b, cy->start_s));
     if (d && isfinite(d->turnoff_time_s) && d->turnoff_time_s > 0) {
         double ratio = cy->turnoff_available_s / d->turnoff_time_s;
         double need = isfinite(d->turnoff_ratio_min) ? d->turnoff_ratio_min : 1.0;
@@ -223,7 +230,7 @@ static void print_turnoff(FILE *out, const tf_segment_result *s, const tf_design
     const tf_cycle *cr = &s->cycles[rb];
     fprintf(out, "  switch voltage: %s reverse-biased for at least %s (fired at %s), %.0f %% of "
             "its turn-off time available%s\n", tf_device_name(cr->thyristor),
-            si(a, cr->reverse_bias_s, "s"), si(b, cr->start_s, "s"),
+            si(a, cr->reverse_bias_s, "s"), at(b, cr->start_s),
             100.0 * cr->reverse_bias_s / cr->turnoff_available_s,
             cr->reverse_bias_s < 0.98 * cr->turnoff_available_s
                 ? ": forward-biased before its diode stops (loop inductance)" : "");
@@ -242,7 +249,7 @@ static void print_cycles(FILE *out, const tf_segment_result *s)
     for (size_t k = 0; k < s->ncycles; k++) {
         const tf_cycle *c = &s->cycles[k];
         fprintf(out, "  %-6s %12s %12s %12s %12s %12s %12s %12s", tf_device_name(c->thyristor),
-                si(b[0], c->start_s, "s"), si(b[1], c->frequency_hz, "Hz"),
+                at(b[0], c->start_s), si(b[1], c->frequency_hz, "Hz"),
                 si(b[2], c->thyristor_s, "s"), si(b[3], c->diode_s, "s"),
                 si(b[4], c->turnoff_available_s, "s"), si(b[5], c->dead_s, "s"),
                 si(b[6], c->overlap_s, "s"));
@@ -280,7 +287,7 @@ static void print_summary(FILE *out, const tf_capture *cap, const tf_analysis *a
     else
         fprintf(out, "Anomalies (%zu):\n", s->nanomalies);
     for (size_t k = 0; k < s->nanomalies && k < 20; k++)
-        fprintf(out, "  %s  %-19s %s\n", si(b1, s->anomalies[k].time_s, "s"),
+        fprintf(out, "  %s  %-19s %s\n", at(b1, s->anomalies[k].time_s),
                 s->anomalies[k].kind, s->anomalies[k].text);
     if (s->nanomalies > 20)
         fprintf(out, "  ... and %zu more (see --json)\n", s->nanomalies - 20);
