@@ -435,17 +435,20 @@ tf_status tf_segment_run(const tf_capture *cap, const tf_roles *roles,
      * the peak), one much wider than the noise is narrowed, which drops the lobes'
      * first and last samples whose steps inflate the estimate. */
     double quiet = SEG_QUIET_FRACTION * peak, rest = NAN;
-    double sq = seg_quiet_sigma(x, n, quiet, &rest);
+    size_t npairs = 0;
+    float *pairs = seg_quiet_pairs(x, n, &npairs);
+    double sq = seg_quiet_sigma(pairs, npairs, quiet, &rest);
     for (int pass = 0; pass < 4 && isfinite(sq) && sq > 0; pass++) {
         double wnew = 8 * sq;
         if (wnew > 0.4 * peak || fabs(wnew - quiet) < 0.05 * quiet)
             break;
-        double s2 = seg_quiet_sigma(x, n, wnew, NULL);
+        double s2 = seg_quiet_sigma(pairs, npairs, wnew, NULL);
         if (!isfinite(s2))
             break;
         quiet = wnew;
         sq = s2;
     }
+    free(pairs);
     if (isfinite(sq) && sq < sigma && 8 * sq <= 1.1 * quiet)
         sigma = sq;
     double lsb = ch->stats_valid && ch->stats.lsb > 0 ? ch->stats.lsb : seg_lsb(x, n);

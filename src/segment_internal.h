@@ -59,10 +59,13 @@ typedef struct seg_clip {
 /* Noise sigma from the median absolute deviation of first differences
  * (1.4826 * MAD / sqrt 2); a bounded, evenly spread subset keeps it O(1) in memory. */
 double seg_noise_sigma(const float *x, size_t n);
-/* Robust noise sigma of the sample pairs within +/-quiet of zero (dead zones and
- * rests); NAN when too few pairs are quiet. rest (may be NULL) gets the median level
- * of those samples (NAN then too). */
-double seg_quiet_sigma(const float *x, size_t n, double quiet, double *rest);
+/* Evenly spread sample pairs (x[k], x[k+1]) of the record, at most 32768, malloc'd
+ * (*m pairs; NULL when n < 3 or out of memory). */
+float *seg_quiet_pairs(const float *x, size_t n, size_t *m);
+/* Robust noise sigma of the pairs whose two samples lie within +/-quiet of zero
+ * (dead zones and rests); NAN when too few pairs are quiet. rest (may be NULL) gets
+ * the median level of those samples (NAN then too). */
+double seg_quiet_sigma(const float *pairs, size_t m, double quiet, double *rest);
 
 /* Quantisation step visible in x (0 when none): the smallest non-zero difference
  * when most differences are whole multiples of it. */

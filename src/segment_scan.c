@@ -62,40 +62,53 @@ double seg_noise_sigma(const float *x, size_t n)
  * pairs that both lie within +/-quiet. When fewer than QUIET_MIN pairs (or 1 in
  * 64 of those looked at) are quiet, NAN: the record has no rest to measure. */
 #define QUIET_MIN 32
+#define QUIET_PAIRS 32768
 
-double seg_quiet_sigma(const float *x, size_t n, double quiet, double *rest)
+float *seg_quiet_pairs(const float *x, size_t n, size_t *m)
+{
+    *m = 0;
+    if (n < 3)
+        return NULL;
+    size_t mm = n - 1 < QUIET_PAIRS ? n - 1 : QUIET_PAIRS;
+    /* gathered once: the passes of the window search then stay in cache (a pass over
+     * strided samples of a 10^7-sample record costs a cache miss per pair) */
+    float *p = malloc(2 * mm * sizeof *p);
+    if (!p)
+        return NULL;
+    for (size_t j = 0; j < mm; j++) {
+        size_t k = (size_t)((double)j * (double)(n - 1) / (double)mm);
+        p[2 * j] = x[k];
+        p[2 * j + 1] = x[k + 1];
+    }
+    *m = mm;
+    return p;
+}
+
+double seg_quiet_sigma(const float *pairs, size_t m, double quiet, double *rest)
 {
     if (rest)
         *rest = NAN;
-    if (n < 3 || !(quiet > 0))
+    if (!pairs || m < QUIET_MIN || !(quiet > 0))
         return NAN;
-    size_t m = n - 1 < NOISE_SUBSET ? n - 1 : NOISE_SUBSET, q = 0;
     double *d = malloc(m * sizeof *d);
     if (!d)
         return NAN;
     const float lim = (float)quiet;
-    for (size_t j = 0; j < m; j++) {
-        size_t k = (size_t)((double)j * (double)(n - 1) / (double)m);
-        if (fabsf(x[k]) <= lim && fabsf(x[k + 1]) <= lim)
-            d[q++] = (double)x[k + 1] - (double)x[k];
+    size_t q = 0;
+    if (rest) {
+        /* the level the quiet samples rest at: 0, or a probe offset */
+        for (size_t j = 0; j < m; j++)
+            if (fabsf(pairs[2 * j]) <= lim && fabsf(pairs[2 * j + 1]) <= lim)
+                d[q++] = pairs[2 * j];
+        if (q >= QUIET_MIN && q >= m / 64)
+            *rest = gsl_stats_median(d, 1, q);
+        q = 0;
     }
+    for (size_t j = 0; j < m; j++)
+        if (fabsf(pairs[2 * j]) <= lim && fabsf(pairs[2 * j + 1]) <= lim)
+            d[q++] = (double)pairs[2 * j + 1] - (double)pairs[2 * j];
     double sigma = NAN;
     if (q >= QUIET_MIN && q >= m / 64) {
-        if (rest) {
-            /* the level the quiet samples rest at: 0, or a probe offset */
-            size_t r = 0;
-            for (size_t j = 0; j < m && r < q; j++) {
-                size_t k = (size_t)((double)j * (double)(n - 1) / (double)m);
-                if (fabsf(x[k]) <= lim && fabsf(x[k + 1]) <= lim)
-                    d[r++] = x[k];
-            }
-            *rest = gsl_stats_median(d, 1, q);
-            for (size_t j = 0, r2 = 0; j < m && r2 < q; j++) {
-                size_t k = (size_t)((double)j * (double)(n - 1) / (double)m);
-                if (fabsf(x[k]) <= lim && fabsf(x[k + 1]) <= lim)
-                    d[r2++] = (double)x[k + 1] - (double)x[k];
-            }
-        }
         double med = gsl_stats_median(d, 1, q);
         for (size_t j = 0; j < q; j++)
             d[j] = fabs(d[j] - med);
