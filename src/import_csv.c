@@ -155,15 +155,8 @@ static void on_field(void *data, size_t len, void *ctx)
         return;
     }
     int m = w->map[c];
-    if (m < 0 && m != MAP_TIME) {
-        if (comment_start(w, c, s, len))
-            return;
-        if (m == MAP_EMPTY && len != 0) {
-            char ex[64];
-            fail(w, TF_ERR_DATA, c + 1, "expected an empty field (the column has no name and "
-                 "is empty in the first rows), found '%s'",
-                 tf_error_excerpt(ex, sizeof ex, s, (unsigned)len, TF_CSV_EXCERPT));
-        }
+    if (m == MAP_SKIP) {
+        comment_start(w, c, s, len);
         return;
     }
     if (w->row >= w->cap) {
@@ -173,6 +166,15 @@ static void on_field(void *data, size_t len, void *ctx)
     }
     if (m == MAP_TIME) {
         time_field(w, c, s, len);
+        return;
+    }
+    if (m == MAP_EMPTY) {
+        if (len != 0 && !comment_start(w, c, s, len)) {
+            char ex[64];
+            fail(w, TF_ERR_DATA, c + 1, "expected an empty field (the column has no name and "
+                 "is empty in the first rows), found '%s'",
+                 tf_error_excerpt(ex, sizeof ex, s, (unsigned)len, TF_CSV_EXCERPT));
+        }
         return;
     }
     double v;
