@@ -71,6 +71,12 @@ tf_topology seg_infer_topology(const seg_input *in, const seg_run *r, size_t nr,
             return TF_TOPO_RING_DOWN;
         }
     }
+    if (strong < 2) {
+        /* one lobe (or a current that never returns to zero) shows no pattern */
+        snprintf(ev, evsize, "%zu strong lobe%s in the record: nothing shows the topology "
+                 "(half-bridge assumed; give --topology)", strong, strong == 1 ? "" : "s");
+        return TF_TOPO_HALF_BRIDGE;
+    }
     if (same + opp == 0) {
         snprintf(ev, evsize, "no dead zone and lobes of steady size: bridge in overlapping "
                  "operation (half-bridge assumed; give --topology full-bridge for a full bridge)");

@@ -570,6 +570,27 @@ static void test_segment_no_false_firings(void **state)
     segw_free(&w);
 }
 
+/* A current that never returns to zero (a constant 5 A: a DC probe offset, not an
+ * inverter) has no lobe pattern: the evidence says so, no cycle is invented. */
+static void test_segment_no_pattern(void **state)
+{
+    (void)state;
+    tf_capture *cap = tf_capture_create();
+    tf_error e;
+    assert_int_equal(tf_capture_alloc(cap, 1, 2000, &e), TF_OK);
+    cap->dt_s = 1e-6;
+    snprintf(cap->ch[0].name, sizeof cap->ch[0].name, "i");
+    snprintf(cap->ch[0].unit, sizeof cap->ch[0].unit, "A");
+    for (size_t k = 0; k < cap->n; k++)
+        cap->ch[0].samples[k] = 5.0f;
+    tf_segment_result *r = np_segment(cap);
+    assert_non_null(strstr(r->topology_evidence, "nothing shows the topology"));
+    assert_int_equal(r->ncycles, 0);
+    assert_int_equal(r->nbursts, 0);
+    tf_segment_free(r);
+    tf_capture_destroy(cap);
+}
+
 static void test_segment_ring_down(void **state)
 {
     (void)state;
@@ -1179,6 +1200,7 @@ int main(void)
         cmocka_unit_test(test_segment_numpy_sampling_range),
         cmocka_unit_test(test_segment_numpy_noise_and_offset),
         cmocka_unit_test(test_segment_no_false_firings),
+        cmocka_unit_test(test_segment_no_pattern),
         cmocka_unit_test(test_segment_ring_down),
         cmocka_unit_test(test_segment_clipped_current),
         cmocka_unit_test(test_segment_unclipped_quantised_peaks_not_clipped),
