@@ -317,6 +317,10 @@ tf_status tf_time_finish(const tf_time_acc *acc, size_t parts, const char *path,
     }
     *t0 = T0 + alpha;
     *dt = D + beta;
+    /* a start a billionth of a sample from zero is the fit's rounding, not a time
+     * anyone printed: report it as zero */
+    if (fabs(*t0) < 1e-9 * fabs(*dt))
+        *t0 = 0.0;
     *resolution = qmax;
     return TF_OK;
 }
