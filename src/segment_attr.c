@@ -44,7 +44,8 @@ tf_topology seg_infer_topology(const seg_input *in, const seg_run *r, size_t nr,
     float maxpk = 0;
     for (size_t j = 0; j < nr; j++)
         maxpk = r[j].pk > maxpk ? r[j].pk : maxpk;
-    const float big = fmaxf((float)(8 * in->band), 0.2f * maxpk);
+    /* (at low SNR, 8 bands can exceed the peak: half the largest lobe is then enough) */
+    const float big = fmaxf(fminf((float)(8 * in->band), 0.5f * maxpk), 0.2f * maxpk);
     for (size_t j = 0; j + 1 < nr; j++) {
         if (!zero_kind(r[j].k_end) || r[j].pk < big || r[j + 1].pk < big)
             continue;

@@ -521,6 +521,18 @@ static void test_segment_numpy_noise_and_offset(void **state)
     tf_segment_free(r);
     tf_capture_destroy(cap);
 
+    /* 5 A of noise on 100 A (8 bands exceed the peak): the pattern is still read from
+     * the lobes of at least half the largest, a half-bridge */
+    np_case h = {10e3, 8, 200, 20, 5.0, 0, "A", 1, 0};
+    cap = np_capture(&h, "np_heavy.csv");
+    r = np_segment(cap);
+    assert_int_equal(r->topology, TF_TOPO_HALF_BRIDGE);
+    assert_non_null(strstr(r->topology_evidence, "same sign"));
+    assert_int_equal(r->mode, TF_MODE_NON_OVERLAPPING);
+    assert_true(fabs(r->noise_sigma_a - 5.0) < 0.5); /* reference: numpy's sigma */
+    tf_segment_free(r);
+    tf_capture_destroy(cap);
+
     /* a 3 A probe offset on a noiseless record: the rests stay inside the band (no
      * phantom lobes from the dead zones) and the offset is reported with its size */
     np_case o = {10e3, 8, 200, 8, 0, 3.0, "A", 1, 0};
