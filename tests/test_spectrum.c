@@ -963,9 +963,65 @@ static void test_spectrum_errors(void **state)
     tf_capture_destroy(cap);
 }
 
+/* A half-bridge current written by numpy at 20 samples per resonant period (50 per
+ * output period), fundamental from the segmenter: h1, h3, h5 and the RMS against
+ * numpy.fft over the same whole periods. */
+static void test_spectrum_numpy_coarse_capture(void **state)
+{
+    (void)state;
+    if (!tf_test_have("/usr/bin/python3") ||
+        tf_test_system("/usr/bin/python3 -c 'import numpy' 2>/dev/null") != 0) {
+        print_message("skipped: /usr/bin/python3 with numpy missing\n");
+        skip();
+    }
+    const char *csv = tf_test_tmpfile("spec_coarse.csv");
+    assert_int_equal(tf_test_system("/usr/bin/python3 '%s' '%s' 10000 8 20 12 0 0 A 1 0",
+                                    tf_test_src("tests/support/segment_numpy.py"), csv),
+                     0);
+    const char *ref = tf_test_tmpfile("spec_coarse.ref");
+    /* reference: numpy.fft over the 12 whole output periods (50 samples each) */
+    assert_int_equal(
+        tf_test_system("/usr/bin/python3 -c \"import numpy as np;"
+                       "i=np.loadtxt('%s',delimiter=',',skiprows=1)[:,1][:600];"
+                       "X=np.abs(np.fft.rfft(i))/600*np.sqrt(2);"
+                       "open('%s','w').write('%%.9g %%.9g %%.9g %%.9g' %% "
+                       "(X[12],X[36],X[60],np.sqrt(np.mean(i*i))))\"",
+                       csv, ref),
+        0);
+    double h1, h3, h5, rms;
+    FILE *f = fopen(ref, "r");
+    assert_non_null(f);
+    assert_int_equal(fscanf(f, "%lf %lf %lf %lf", &h1, &h3, &h5, &rms), 4);
+    fclose(f);
+    tf_import_options io;
+    tf_import_options_init(&io);
+    tf_capture *cap = NULL;
+    tf_error e;
+    assert_int_equal(tf_import_csv(csv, &io, &cap, &e), TF_OK);
+    tf_roles roles;
+    assert_int_equal(tf_roles_resolve(cap, NULL, NULL, &roles, &e), TF_OK);
+    tf_segment_result *seg = NULL;
+    assert_int_equal(tf_segment_run(cap, &roles, NULL, &seg, &e), TF_OK);
+    tf_spectrum_options o;
+    tf_spectrum_options_init(&o);
+    tf_spectrum_result *r = run(cap, &roles, seg, &o);
+    assert_true(r->nch >= 1);
+    const tf_channel_spectrum *c = &r->ch[0];
+    print_message("h1 %g (%g), h3 %g (%g), h5 %g (%g), rms %g (%g)\n", c->harm[0].rms, h1,
+                  c->harm[2].rms, h3, c->harm[4].rms, h5, c->rms, rms);
+    assert_true(tf_test_reldiff(c->harm[0].rms, h1) < 1e-4);
+    assert_true(tf_test_reldiff(c->harm[2].rms, h3) < 1e-4);
+    assert_true(tf_test_reldiff(c->harm[4].rms, h5) < 1e-3);
+    assert_true(tf_test_reldiff(c->rms, rms) < 1e-4);
+    tf_spectrum_free(r);
+    tf_segment_free(seg);
+    tf_capture_destroy(cap);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
+        cmocka_unit_test(test_spectrum_numpy_coarse_capture),
         cmocka_unit_test(test_spectrum_smooth_lengths),
         cmocka_unit_test(test_spectrum_cubic_error),
         cmocka_unit_test(test_spectrum_square_sampled_dft),
