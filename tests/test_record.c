@@ -114,7 +114,7 @@ static void test_record_interrupted_write(void **state)
 {
     (void)state;
     const char *dir = fresh_dir("interrupted");
-    char p[4096], q[4096];
+    char p[4096], q[4096 + 16];
     tf_error err;
     tf_record_fault_after_temp(1);
     assert_int_equal(tf_record_write_unique(dir, "U", ".json", "{}", 2, p, sizeof p, &err),
@@ -169,7 +169,7 @@ static void test_record_numbers_and_diff(void **state)
 static char *run_cli(int *rc, const char *fmt, const char *a1, const char *a2, const char *a3)
 {
     const char *out = tf_test_tmpfile("cli.out");
-    char args[8192];
+    char args[4 * 4096 + 256];
     snprintf(args, sizeof args, fmt, a1, a2, a3);
     *rc = tf_test_system("'%s' %s > '%s' 2>&1", tf_test_cli(), args, out);
     char *text = tf_test_slurp(out, NULL);
