@@ -27,17 +27,6 @@ void tf_check_args_free(tf_check_args *a)
     a->argv = NULL;
 }
 
-static int quantity(const char *cmd, const char *flag, const char *text, const char *unit,
-                    double *v)
-{
-    char u[16];
-    if (tf_parse_quantity(text, v, u, sizeof u) != 0 || !isfinite(*v) ||
-        (u[0] && strcmp(u, unit) != 0))
-        return tf_cli_usage(cmd, "%s: expected a number%s%s, found '%s'", flag,
-                            unit[0] ? " of " : "", unit, text);
-    return 0;
-}
-
 static void keep(tf_check_args *a, char **argv, int from, int to)
 {
     for (int k = from; k <= to; k++)
@@ -46,15 +35,6 @@ static void keep(tf_check_args *a, char **argv, int from, int to)
 
 int tf_check_args_parse(int argc, char **argv, tf_check_args *a, const char *cmd)
 {
-    static const struct { const char *flag; size_t off; } names[] = {
-        {"--current", offsetof(tf_role_names, current)},
-        {"--voltage", offsetof(tf_role_names, voltage)},
-        {"--cap-voltage", offsetof(tf_role_names, cap_voltage)},
-        {"--switch-voltage", offsetof(tf_role_names, switch_voltage)},
-        {"--gate1", offsetof(tf_role_names, gate[0])},
-        {"--gate2", offsetof(tf_role_names, gate[1])},
-        {"--gate3", offsetof(tf_role_names, gate[2])},
-        {"--gate4", offsetof(tf_role_names, gate[3])}};
     static const struct { const char *flag, *unit; size_t off; } nums[] = {
         {"--capacitance", "F", offsetof(tf_check_args, capacitance)},
         {"--inductance", "H", offsetof(tf_check_args, inductance)},
@@ -83,17 +63,15 @@ int tf_check_args_parse(int argc, char **argv, tf_check_args *a, const char *cmd
                 keep(a, argv, start, i);
                 continue;
             }
-            for (size_t k = 0; k < sizeof names / sizeof names[0] && !done; k++)
-                if ((r = tf_cli_value(argc, argv, &i, names[k].flag, &v)) != 0) {
-                    if (r < 0)
-                        return EXIT_USAGE;
-                    *(const char **)((char *)&a->roles + names[k].off) = v;
-                    keep(a, argv, start, i);
-                    done = 1;
-                }
+            if ((r = tf_cli_role_option(argc, argv, &i, &a->roles)) != 0) {
+                if (r < 0)
+                    return EXIT_USAGE;
+                keep(a, argv, start, i);
+                done = 1;
+            }
             for (size_t k = 0; k < sizeof nums / sizeof nums[0] && !done; k++)
                 if ((r = tf_cli_value(argc, argv, &i, nums[k].flag, &v)) != 0) {
-                    if (r < 0 || quantity(cmd, nums[k].flag, v, nums[k].unit,
+                    if (r < 0 || tf_cli_quantity(cmd, nums[k].flag, v, nums[k].unit,
                                           (double *)((char *)a + nums[k].off)))
                         return EXIT_USAGE;
                     if (strcmp(nums[k].flag, "--skew") == 0)

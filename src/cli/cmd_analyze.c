@@ -53,27 +53,8 @@ typedef struct args {
     tf_import_options io;
 } args;
 
-static int quantity(const char *flag, const char *text, const char *unit, double *v)
-{
-    char u[16];
-    if (tf_parse_quantity(text, v, u, sizeof u) != 0 || !isfinite(*v) ||
-        (u[0] && strcmp(u, unit) != 0))
-        return tf_cli_usage("analyze", "%s: expected a number of %s, found '%s'", flag, unit,
-                            text);
-    return 0;
-}
-
 static int parse(int argc, char **argv, args *a)
 {
-    static const struct { const char *flag; size_t off; } names[] = {
-        {"--current", offsetof(tf_role_names, current)},
-        {"--voltage", offsetof(tf_role_names, voltage)},
-        {"--cap-voltage", offsetof(tf_role_names, cap_voltage)},
-        {"--switch-voltage", offsetof(tf_role_names, switch_voltage)},
-        {"--gate1", offsetof(tf_role_names, gate[0])},
-        {"--gate2", offsetof(tf_role_names, gate[1])},
-        {"--gate3", offsetof(tf_role_names, gate[2])},
-        {"--gate4", offsetof(tf_role_names, gate[3])}};
     static const struct { const char *flag, *unit; size_t off; } nums[] = {
         {"--capacitance", "F", offsetof(args, capacitance)},
         {"--inductance", "H", offsetof(args, inductance)},
@@ -89,17 +70,15 @@ static int parse(int argc, char **argv, args *a)
                 return EXIT_USAGE;
             continue;
         }
-        for (size_t k = 0; k < sizeof names / sizeof names[0] && !done; k++)
-            if ((r = tf_cli_value(argc, argv, &i, names[k].flag, &v)) != 0) {
-                if (r < 0)
-                    return EXIT_USAGE;
-                *(const char **)((char *)&a->roles + names[k].off) = v;
-                done = 1;
-            }
+        if ((r = tf_cli_role_option(argc, argv, &i, &a->roles)) != 0) {
+            if (r < 0)
+                return EXIT_USAGE;
+            done = 1;
+        }
         for (size_t k = 0; k < sizeof nums / sizeof nums[0] && !done; k++)
             if ((r = tf_cli_value(argc, argv, &i, nums[k].flag, &v)) != 0) {
                 if (r < 0 ||
-                    quantity(nums[k].flag, v, nums[k].unit, (double *)((char *)a + nums[k].off)))
+                    tf_cli_quantity("analyze", nums[k].flag, v, nums[k].unit, (double *)((char *)a + nums[k].off)))
                     return EXIT_USAGE;
                 if (strcmp(nums[k].flag, "--skew") == 0)
                     a->skew_set = 1;

@@ -27,6 +27,7 @@ static void help(FILE *out)
           "  --topology T            single, half-bridge, full-bridge or ring-down\n"
           "  --current NAME          load current channel\n"
           "  --voltage NAME          bridge output voltage (v-i R when C and L are unknown)\n"
+          "  --cap-voltage, --switch-voltage, --gate1..--gate4 NAME  other roles, as analyze\n"
           "  --skew S                voltage-to-current probe delay (else estimated)\n"
           "  --baseline EMPTY        capture of the coil without workpiece: R_coil, so that\n"
           "                          R_w = R_eff - R_coil and efficiency R_w / R_eff\n"
@@ -55,16 +56,6 @@ typedef struct targs {
     tf_import_options io;
 } targs;
 
-static int quantity(const char *flag, const char *text, const char *unit, double *v)
-{
-    char u[16];
-    if (tf_parse_quantity(text, v, u, sizeof u) != 0 || !isfinite(*v) ||
-        (u[0] && strcmp(u, unit) != 0))
-        return tf_cli_usage("track", "%s: expected a number of %s, found '%s'", flag,
-                            unit[0] ? unit : "(no unit)", text);
-    return 0;
-}
-
 static int parse(int argc, char **argv, targs *a)
 {
     static const struct { const char *flag, *unit; size_t off; } nums[] = {
@@ -90,7 +81,7 @@ static int parse(int argc, char **argv, targs *a)
                 if (r < 0)
                     return EXIT_USAGE;
                 double *dst = (double *)((char *)a + nums[k].off);
-                if (quantity(nums[k].flag, v, nums[k].unit, dst))
+                if (tf_cli_quantity("track", nums[k].flag, v, nums[k].unit, dst))
                     return EXIT_USAGE;
                 if (nums[k].off == offsetof(targs, skew))
                     a->skew_set = 1;
@@ -103,16 +94,9 @@ static int parse(int argc, char **argv, targs *a)
                 *(const char **)((char *)a + strs[k].off) = v;
                 done = 1;
             }
-        if (!done && (r = tf_cli_value(argc, argv, &i, "--current", &v)) != 0) {
+        if (!done && (r = tf_cli_role_option(argc, argv, &i, &a->roles)) != 0) {
             if (r < 0)
                 return EXIT_USAGE;
-            a->roles.current = v;
-            done = 1;
-        }
-        if (!done && (r = tf_cli_value(argc, argv, &i, "--voltage", &v)) != 0) {
-            if (r < 0)
-                return EXIT_USAGE;
-            a->roles.voltage = v;
             done = 1;
         }
         if (done)

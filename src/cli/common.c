@@ -1,7 +1,9 @@
 /* Shared CLI helpers: option values, import options, error and JSON printing. */
 #include "common.h"
 
+#include <math.h>
 #include <stdarg.h>
+#include <stddef.h>
 #include <string.h>
 #include <unistd.h>
 
@@ -86,6 +88,41 @@ int tf_cli_import_option(int argc, char **argv, int *i, tf_import_options *o)
         }
         return 1;
     }
+    return 0;
+}
+
+int tf_cli_role_option(int argc, char **argv, int *i, tf_role_names *roles)
+{
+    static const struct { const char *flag; size_t off; } names[] = {
+        {"--current", offsetof(tf_role_names, current)},
+        {"--voltage", offsetof(tf_role_names, voltage)},
+        {"--cap-voltage", offsetof(tf_role_names, cap_voltage)},
+        {"--switch-voltage", offsetof(tf_role_names, switch_voltage)},
+        {"--gate1", offsetof(tf_role_names, gate[0])},
+        {"--gate2", offsetof(tf_role_names, gate[1])},
+        {"--gate3", offsetof(tf_role_names, gate[2])},
+        {"--gate4", offsetof(tf_role_names, gate[3])}};
+    for (size_t k = 0; k < sizeof names / sizeof names[0]; k++) {
+        const char *v;
+        int r = tf_cli_value(argc, argv, i, names[k].flag, &v);
+        if (r < 0)
+            return -1;
+        if (r > 0) {
+            *(const char **)((char *)roles + names[k].off) = v;
+            return 1;
+        }
+    }
+    return 0;
+}
+
+int tf_cli_quantity(const char *cmd, const char *flag, const char *text, const char *unit,
+                    double *v)
+{
+    char u[16];
+    if (tf_parse_quantity(text, v, u, sizeof u) != 0 || !isfinite(*v) ||
+        (u[0] && strcmp(u, unit) != 0))
+        return tf_cli_usage(cmd, "%s: expected a number%s%s, found '%s'", flag,
+                            unit[0] ? " of " : "", unit, text);
     return 0;
 }
 

@@ -32,6 +32,16 @@ int tf_cli_value(int argc, char **argv, int *i, const char *flag, const char **v
  * printing an error (then exit with EXIT_USAGE). */
 int tf_cli_import_option(int argc, char **argv, int *i, tf_import_options *o);
 
+/* Consume a channel-role option (--current, --voltage, --cap-voltage,
+ * --switch-voltage, --gate1..--gate4 NAME) into roles. Returns 1 when consumed, 0
+ * when argv[*i] is not one of them, -1 after printing an error. */
+int tf_cli_role_option(int argc, char **argv, int *i, tf_role_names *roles);
+
+/* Parse a number with an optional SI prefix and the given unit ("" for none) as the
+ * value of flag. Returns 0, or prints a usage error for cmd and returns EXIT_USAGE. */
+int tf_cli_quantity(const char *cmd, const char *flag, const char *text, const char *unit,
+                    double *v);
+
 /* Help text for those shared options. */
 void tf_cli_import_options_help(FILE *out);
 
