@@ -593,11 +593,13 @@ static tf_status build_cycles(const seg_input *in, tf_lobe *L, const lobe_rec *r
     const double dt = in->cap->dt_s;
     const float *vsw = in->roles->switch_voltage >= 0
                            ? in->cap->ch[in->roles->switch_voltage].samples : NULL;
-    double hsw = 0;
+    double hsw = 0, sig_sw = 0, q_sw = 0;
     if (vsw) {
         /* forward means clearly above zero: a few noise sigmas or one code step */
         double sig = seg_noise_sigma(vsw, in->n), q = seg_lsb(vsw, in->n);
-        hsw = fmax(3 * (isfinite(sig) ? sig : 0), 1.5 * q);
+        sig_sw = isfinite(sig) ? sig : 0;
+        q_sw = q;
+        hsw = fmax(3 * sig_sw, 1.5 * q);
     }
     for (size_t j = 0; j < nl; j++) {
         if (!tf_device_is_thyristor(L[j].device) || rec[j].k0 == SEG_B_EDGE ||
@@ -642,12 +644,17 @@ static tf_status build_cycles(const seg_input *in, tf_lobe *L, const lobe_rec *r
                 for (size_t k = a0; k < a1 && k < in->n; k++)
                     sum += vsw[k];
                 double mean = a1 > a0 ? sum / (double)(a1 - a0) : 0;
+                /* the mean of N samples carries sigma / sqrt(N) of noise: the bias is
+                 * shown when that mean lies clearly below zero (the same averaging
+                 * that lets the acceptance check time a one-diode-drop bias) */
+                double hmean = a1 > a0 ? fmax(3 * sig_sw / sqrt((double)(a1 - a0)), 1.5 * q_sw)
+                                       : hsw;
                 size_t lim = (size_t)ceil(rec[j + 1].t1) + 8;
-                double tr = mean < -hsw ? reverse_until(vsw, rec[j].t1, lim < in->n ? lim : in->n, hsw)
-                                        : NAN;
+                double tr = mean < -hmean ? reverse_until(vsw, rec[j].t1, lim < in->n ? lim : in->n, hsw)
+                                          : NAN;
                 if (isfinite(tr))
                     c->reverse_bias_s = (tr - rec[j].t1) * dt;
-                else if (!(mean < -hsw))
+                else if (!(mean < -hmean))
                     (*unresolved)++;
             }
         }
