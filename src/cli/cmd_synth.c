@@ -90,7 +90,8 @@ static int run(int argc, char **argv)
     tf_error err;
     tf_error_clear(&err);
     tf_design_init(d);
-    if (tf_design_load(a.design, d, &err) != TF_OK) {
+    if (tf_design_load(a.design, d, &err) != TF_OK ||
+        tf_design_validate(d, 1, &err) != TF_OK) {
         free(d);
         return tf_cli_fail(&err);
     }
