@@ -124,24 +124,6 @@ int tf_check_args_parse(int argc, char **argv, tf_check_args *a, const char *cmd
     return 0;
 }
 
-/* Scale factors from the design's [channels] unless the command line set them. */
-static int design_scales(const tf_design *d, tf_import_options *io)
-{
-    for (size_t k = 0; k < d->nscales; k++) {
-        int given = 0;
-        for (size_t j = 0; j < io->nscale; j++)
-            given |= strcmp(io->scale[j].name, d->scales[k].column) == 0;
-        if (given)
-            continue;
-        char text[128];
-        tf_error err;
-        snprintf(text, sizeof text, "%s=%.17g", d->scales[k].column, d->scales[k].factor);
-        if (tf_import_options_add(io, TF_OPT_SCALE, text, &err) != TF_OK)
-            return tf_cli_fail(&err);
-    }
-    return 0;
-}
-
 static void analysis_options(const tf_check_args *a, const tf_design *d, tf_analysis_options *o)
 {
     tf_analysis_options_init(o, d);
@@ -328,7 +310,7 @@ int tf_check_run_execute(const tf_check_args *a, time_t when, tf_check_run *r)
         return tf_cli_fail(&err);
     absolute(a->design, r->design_abs, sizeof r->design_abs);
     tf_import_options io = a->io;
-    int rc = design_scales(r->design, &io);
+    int rc = tf_cli_design_scales(r->design, &io);
     if (rc)
         return rc;
     tf_analysis_options o;

@@ -286,24 +286,6 @@ static void print_summary(FILE *out, const tf_capture *cap, const tf_analysis *a
                 a->spectrum_error.msg[0] ? a->spectrum_error.msg : "skipped");
 }
 
-/* Scale factors from the design's [channels] unless the command line set them. */
-static int design_scales(const tf_design *d, tf_import_options *io)
-{
-    for (size_t k = 0; k < d->nscales; k++) {
-        int given = 0;
-        for (size_t j = 0; j < io->nscale; j++)
-            given |= strcmp(io->scale[j].name, d->scales[k].column) == 0;
-        if (given)
-            continue;
-        char text[128];
-        tf_error err;
-        snprintf(text, sizeof text, "%s=%.17g", d->scales[k].column, d->scales[k].factor);
-        if (tf_import_options_add(io, TF_OPT_SCALE, text, &err) != TF_OK)
-            return tf_cli_fail(&err);
-    }
-    return 0;
-}
-
 static int run(int argc, char **argv)
 {
     args a;
@@ -328,7 +310,7 @@ static int run(int argc, char **argv)
             free(d);
             return tf_cli_fail(&err);
         }
-        if ((rc = design_scales(d, &a.io)) != 0) {
+        if ((rc = tf_cli_design_scales(d, &a.io)) != 0) {
             free(d);
             return rc;
         }

@@ -396,16 +396,10 @@ static int run(int argc, char **argv)
             free(d);
             return tf_cli_fail(&err);
         }
-        for (size_t k = 0; k < d->nscales; k++) {
-            char text[128];
-            snprintf(text, sizeof text, "%s=%.17g", d->scales[k].column, d->scales[k].factor);
-            int given = 0;
-            for (size_t j = 0; j < a.io.nscale; j++)
-                given |= strcmp(a.io.scale[j].name, d->scales[k].column) == 0;
-            if (!given && tf_import_options_add(&a.io, TF_OPT_SCALE, text, &err) != TF_OK) {
-                free(d);
-                return tf_cli_fail(&err);
-            }
+        int rc = tf_cli_design_scales(d, &a.io);
+        if (rc != 0) {
+            free(d);
+            return rc;
         }
     }
     double r_coil = NAN;

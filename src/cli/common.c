@@ -126,6 +126,23 @@ int tf_cli_quantity(const char *cmd, const char *flag, const char *text, const c
     return 0;
 }
 
+int tf_cli_design_scales(const tf_design *d, tf_import_options *io)
+{
+    for (size_t k = 0; k < d->nscales; k++) {
+        int given = 0;
+        for (size_t j = 0; j < io->nscale; j++)
+            given |= strcmp(io->scale[j].name, d->scales[k].column) == 0;
+        if (given)
+            continue;
+        char text[128];
+        tf_error err;
+        snprintf(text, sizeof text, "%s=%.17g", d->scales[k].column, d->scales[k].factor);
+        if (tf_import_options_add(io, TF_OPT_SCALE, text, &err) != TF_OK)
+            return tf_cli_fail(&err);
+    }
+    return 0;
+}
+
 void tf_cli_import_options_help(FILE *out)
 {
     fputs("Capture options (every command):\n"

@@ -42,6 +42,10 @@ int tf_cli_role_option(int argc, char **argv, int *i, tf_role_names *roles);
 int tf_cli_quantity(const char *cmd, const char *flag, const char *text, const char *unit,
                     double *v);
 
+/* Add the design's [channels] scale factors to io, except for columns the command
+ * line already scales. Returns 0, or prints the error and returns its exit code. */
+int tf_cli_design_scales(const tf_design *d, tf_import_options *io);
+
 /* Help text for those shared options. */
 void tf_cli_import_options_help(FILE *out);
 
