@@ -128,22 +128,10 @@ static void analysis_options(const tf_check_args *a, const tf_design *d, tf_anal
 {
     tf_analysis_options_init(o, d);
     o->roles = a->roles;
-    if (a->topology)
-        o->segment.topology = tf_topology_parse(a->topology);
+    tf_cli_stage_options(o, a->topology, a->capacitance, a->inductance, a->vt, a->vd,
+                         a->skew_set, a->skew);
     if (isfinite(a->band))
         o->segment.band_k = a->band;
-    if (isfinite(a->capacitance))
-        o->fit.capacitance_f = a->capacitance;
-    if (isfinite(a->inductance))
-        o->fit.inductance_h = a->inductance;
-    if (isfinite(a->vt))
-        o->fit.thyristor_drop_v = a->vt;
-    if (isfinite(a->vd))
-        o->fit.diode_drop_v = a->vd;
-    if (a->skew_set) {
-        o->fit.skew_s = a->skew;
-        o->fit.skew_set = 1;
-    }
     o->spectrum.window = a->window;
     /* fixed thread counts: the same split of the work on every machine, so the
      * figures are byte-identical wherever the record is verified */

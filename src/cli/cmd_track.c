@@ -280,20 +280,8 @@ static void set_options(const targs *a, const tf_design *d, tf_analysis_options 
     tf_analysis_options_init(o, d);
     o->roles = a->roles;
     o->skip_spectrum = 1;
-    if (a->topology)
-        o->segment.topology = tf_topology_parse(a->topology);
-    if (isfinite(a->capacitance))
-        o->fit.capacitance_f = a->capacitance;
-    if (isfinite(a->inductance))
-        o->fit.inductance_h = a->inductance;
-    if (isfinite(a->vt))
-        o->fit.thyristor_drop_v = a->vt;
-    if (isfinite(a->vd))
-        o->fit.diode_drop_v = a->vd;
-    if (a->skew_set) {
-        o->fit.skew_s = a->skew;
-        o->fit.skew_set = 1;
-    }
+    tf_cli_stage_options(o, a->topology, a->capacitance, a->inductance, a->vt, a->vd,
+                         a->skew_set, a->skew);
     o->fit.skip_lobes = 1;
 }
 

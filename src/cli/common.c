@@ -143,6 +143,26 @@ int tf_cli_design_scales(const tf_design *d, tf_import_options *io)
     return 0;
 }
 
+void tf_cli_stage_options(tf_analysis_options *o, const char *topology, double capacitance,
+                          double inductance, double thyristor_drop, double diode_drop,
+                          int skew_set, double skew)
+{
+    if (topology)
+        o->segment.topology = tf_topology_parse(topology);
+    if (isfinite(capacitance))
+        o->fit.capacitance_f = capacitance;
+    if (isfinite(inductance))
+        o->fit.inductance_h = inductance;
+    if (isfinite(thyristor_drop))
+        o->fit.thyristor_drop_v = thyristor_drop;
+    if (isfinite(diode_drop))
+        o->fit.diode_drop_v = diode_drop;
+    if (skew_set) {
+        o->fit.skew_s = skew;
+        o->fit.skew_set = 1;
+    }
+}
+
 void tf_cli_import_options_help(FILE *out)
 {
     fputs("Capture options (every command):\n"

@@ -46,6 +46,13 @@ int tf_cli_quantity(const char *cmd, const char *flag, const char *text, const c
  * line already scales. Returns 0, or prints the error and returns its exit code. */
 int tf_cli_design_scales(const tf_design *d, tf_import_options *io);
 
+/* Stage values given on the command line, over what tf_analysis_options_init took
+ * from the design: topology (NULL = not given), C, L, drops (NAN = not given) and the
+ * probe skew (used when skew_set). */
+void tf_cli_stage_options(tf_analysis_options *o, const char *topology, double capacitance,
+                          double inductance, double thyristor_drop, double diode_drop,
+                          int skew_set, double skew);
+
 /* Help text for those shared options. */
 void tf_cli_import_options_help(FILE *out);
 
