@@ -740,21 +740,8 @@ static void test_import_csv_independent_tools(void **state)
     (void)state;
     if (!tf_test_have("/usr/bin/python3"))
         skip();
-    const char *list = tf_test_tmpfile("robust-cases.txt");
-    char listpath[512];
-    snprintf(listpath, sizeof listpath, "%s", list);
-    assert_int_equal(tf_test_system("/usr/bin/python3 '%s' --list > '%s'",
-                                    tf_test_src("tests/support/import_csv_robust.py"), listpath),
-                     0);
-    FILE *f = fopen(listpath, "r");
-    assert_non_null(f);
-    char name[96];
-    int failed = 0, ran = 0;
-    while (fscanf(f, "%95s", name) == 1) {
-        failed += robust_case(name);
-        ran++;
-    }
-    fclose(f);
+    int failed;
+    int ran = tf_test_run_listed("tests/support/import_csv_robust.py", robust_case, &failed);
     print_message("%d cases from independent tools, %d failed\n", ran, failed);
     assert_true(ran >= 20);
     assert_int_equal(failed, 0);

@@ -689,20 +689,8 @@ static void test_import_wav_independent_tools(void **state)
     assert_true(tf_test_have("sox"));
     if (!tf_test_have("/usr/bin/python3"))
         skip();
-    char list[512];
-    snprintf(list, sizeof list, "%s", tf_test_tmpfile("robust-wav-cases.txt"));
-    assert_int_equal(tf_test_system("/usr/bin/python3 '%s' --list > '%s'",
-                                    tf_test_src("tests/support/import_wav_robust.py"), list),
-                     0);
-    FILE *f = fopen(list, "r");
-    assert_non_null(f);
-    char name[96];
-    int failed = 0, ran = 0;
-    while (fscanf(f, "%95s", name) == 1) {
-        failed += wav_robust_case(name);
-        ran++;
-    }
-    fclose(f);
+    int failed;
+    int ran = tf_test_run_listed("tests/support/import_wav_robust.py", wav_robust_case, &failed);
     print_message("%d sound files from independent tools, %d failed\n", ran, failed);
     assert_true(ran >= 20);
     assert_int_equal(failed, 0);

@@ -119,3 +119,23 @@ double tf_test_reldiff(double a, double b)
     double d = fabs(b) > 1e-300 ? fabs(b) : 1e-300;
     return fabs(a - b) / d;
 }
+
+int tf_test_run_listed(const char *script, int (*run_case)(const char *name), int *failed)
+{
+    char list[1024];
+    snprintf(list, sizeof list, "%s", tf_test_tmpfile("listed-cases.txt"));
+    assert_int_equal(tf_test_system("/usr/bin/python3 '%s' --list > '%s'", tf_test_src(script),
+                                    list),
+                     0);
+    FILE *f = fopen(list, "r");
+    assert_non_null(f);
+    char name[96];
+    int ran = 0;
+    *failed = 0;
+    while (fscanf(f, "%95s", name) == 1) {
+        *failed += run_case(name);
+        ran++;
+    }
+    fclose(f);
+    return ran;
+}

@@ -33,6 +33,12 @@ char *tf_test_slurp(const char *path, size_t *len);
 /* Write text to path (overwrites). Returns 0 on success. */
 int tf_test_write(const char *path, const char *text);
 
+/* Run `/usr/bin/python3 SCRIPT --list` (SCRIPT relative to the source tree), call
+ * run_case on each case name it prints and return how many cases ran; *failed gets
+ * the sum of run_case's results (the number of failing cases). Asserts that the
+ * script ran. */
+int tf_test_run_listed(const char *script, int (*run_case)(const char *name), int *failed);
+
 /* Relative difference |a - b| / max(|b|, tiny). */
 double tf_test_reldiff(double a, double b);
 
