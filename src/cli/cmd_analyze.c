@@ -62,9 +62,15 @@ static int parse(int argc, char **argv, args *a)
         {"--diode-drop", "V", offsetof(args, vd)},
         {"--skew", "s", offsetof(args, skew)},
         {"--band", "", offsetof(args, band)}};
+    int files_only = 0;
     for (int i = 1; i < argc; i++) {
         const char *v;
         int r, done = 0;
+        if ((r = tf_cli_operand("analyze", argv[i], &files_only, &a->path)) != 0) {
+            if (r < 0)
+                return EXIT_USAGE;
+            continue;
+        }
         if ((r = tf_cli_import_option(argc, argv, &i, &a->io)) != 0) {
             if (r < 0)
                 return EXIT_USAGE;
@@ -111,13 +117,8 @@ static int parse(int argc, char **argv, args *a)
             a->json = 1;
         } else if (strcmp(argv[i], "--window") == 0) {
             a->window = 1;
-        } else if (argv[i][0] == '-' && argv[i][1]) {
-            return tf_cli_usage("analyze", "unknown option '%s'", argv[i]);
-        } else if (a->path) {
-            return tf_cli_usage("analyze", "expected one capture file, found a second: '%s'",
-                                argv[i]);
         } else {
-            a->path = argv[i];
+            return tf_cli_usage("analyze", "unknown option '%s'", argv[i]);
         }
     }
     if (!a->path)

@@ -153,7 +153,13 @@ static int run(int argc, char **argv)
     const char *file = NULL;
     int json = 0, r;
     tf_import_options_init(&opt);
+    int files_only = 0;
     for (int i = 1; i < argc; i++) {
+        if ((r = tf_cli_operand("inspect", argv[i], &files_only, &file)) != 0) {
+            if (r < 0)
+                return EXIT_USAGE;
+            continue;
+        }
         if ((r = tf_cli_import_option(argc, argv, &i, &opt)) != 0) {
             if (r < 0)
                 return EXIT_USAGE;
@@ -161,15 +167,8 @@ static int run(int argc, char **argv)
         }
         if (strcmp(argv[i], "--json") == 0)
             json = 1;
-        else if (strcmp(argv[i], "--") == 0 && i + 1 < argc && !file && i + 2 == argc)
-            file = argv[++i];
-        else if (argv[i][0] == '-' && argv[i][1] != '\0')
-            return tf_cli_usage("inspect", "unknown option '%s'", argv[i]);
-        else if (file)
-            return tf_cli_usage("inspect", "expected one FILE, found a second one: '%s'",
-                                argv[i]);
         else
-            file = argv[i];
+            return tf_cli_usage("inspect", "unknown option '%s'", argv[i]);
     }
     if (!file)
         return tf_cli_usage("inspect", "expected a capture FILE to inspect");

@@ -69,9 +69,15 @@ static int parse(int argc, char **argv, targs *a)
         {"--design", offsetof(targs, design)},   {"--baseline", offsetof(targs, baseline)},
         {"--csv", offsetof(targs, csv)},         {"--svg", offsetof(targs, svg)},
         {"--topology", offsetof(targs, topology)}};
+    int files_only = 0;
     for (int i = 1; i < argc; i++) {
         const char *v;
         int r, done = 0;
+        if ((r = tf_cli_operand("track", argv[i], &files_only, &a->path)) != 0) {
+            if (r < 0)
+                return EXIT_USAGE;
+            continue;
+        }
         if (strcmp(argv[i], "--json") == 0) {
             a->json = 1;
             continue;
@@ -106,11 +112,7 @@ static int parse(int argc, char **argv, targs *a)
                 return EXIT_USAGE;
             continue;
         }
-        if (argv[i][0] == '-' && argv[i][1])
-            return tf_cli_usage("track", "unknown option '%s'", argv[i]);
-        if (a->path)
-            return tf_cli_usage("track", "expected one capture file, found a second: '%s'", argv[i]);
-        a->path = argv[i];
+        return tf_cli_usage("track", "unknown option '%s'", argv[i]);
     }
     if (!a->path)
         return tf_cli_usage("track", "expected a capture file");

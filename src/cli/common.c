@@ -240,3 +240,19 @@ int tf_cli_load_capture(const char *path, tf_import_options *opt, tf_capture **c
     tf_cli_print_warnings(*cap);
     return 0;
 }
+
+int tf_cli_operand(const char *cmd, const char *arg, int *files_only, const char **path)
+{
+    if (!*files_only && strcmp(arg, "--") == 0) {
+        *files_only = 1;
+        return 1;
+    }
+    if (!*files_only && arg[0] == '-' && arg[1] != '\0')
+        return 0;
+    if (*path) {
+        tf_cli_usage(cmd, "expected one capture file, found a second: '%s'", arg);
+        return -1;
+    }
+    *path = arg;
+    return 1;
+}

@@ -66,6 +66,12 @@ int tf_cli_usage(const char *cmd, const char *fmt, ...)
 #endif
     ;
 
+/* The one capture-file operand of inspect, analyze and track. "--" ends the options:
+ * every argument after it is a file, even one that starts with '-'. Returns 1 when
+ * arg was "--" or the file (stored in *path), 0 when it is an option for the caller to
+ * parse, -1 (message printed) on a second file. */
+int tf_cli_operand(const char *cmd, const char *arg, int *files_only, const char **path);
+
 /* Print each capture warning as "tankfit: warning: ..." on stderr. */
 void tf_cli_print_warnings(const tf_capture *cap);
 
