@@ -349,34 +349,43 @@ static int pencil_start(tf_dsfit_workspace *w, const float *x, size_t n, int ord
     return 0;
 }
 
-/* Linear least squares of the amplitudes for fixed (a, w) (per-sample units). */
+/* Linear least squares of the amplitudes for fixed (a, w) (per-sample units). The
+ * sums are named scalars: an array of regressors per sample made the compiler spill
+ * and reload them through the stack on every sample. */
 static int linear_amplitudes(const float *x, size_t n, size_t p, double a, double wv, double *c)
 {
-    double G[25] = {0}, b[5] = {0};
+    double s_rr = 0, s_ri = 0, s_ii = 0, s_r = 0, s_i = 0, b_r = 0, b_i = 0, b_1 = 0;
     const double ea = exp(-a), zr = ea * cos(wv), zi = ea * sin(wv);
-    double pr = 1, pi = 0;
-    for (size_t k = 0; k < n; k++) {
-        if (k % RESYNC == 0 && k) {
-            const double e = exp(-a * (double)k);
-            pr = e * cos(wv * (double)k);
-            pi = e * sin(wv * (double)k);
+    for (size_t k0 = 0; k0 < n; k0 += RESYNC) {
+        const size_t k1 = k0 + RESYNC < n ? k0 + RESYNC : n;
+        const double e = exp(-a * (double)k0);
+        double pr = k0 ? e * cos(wv * (double)k0) : 1.0, pi = k0 ? e * sin(wv * (double)k0) : 0.0;
+        for (size_t k = k0; k < k1; k++) {
+            const double xk = x[k];
+            s_rr += pr * pr;
+            s_ri += pr * pi;
+            s_ii += pi * pi;
+            s_r += pr;
+            s_i += pi;
+            b_r += pr * xk;
+            b_i += pi * xk;
+            b_1 += xk;
+            const double t0 = pr * zr - pi * zi;
+            pi = pr * zi + pi * zr;
+            pr = t0;
         }
-        const double r[3] = {pr, pi, 1.0};
-        for (size_t i = 0; i < p - 2; i++) {
-            b[i] += r[i] * x[k];
-            for (size_t jj = 0; jj < p - 2; jj++)
-                G[i * (p - 2) + jj] += r[i] * r[jj];
-        }
-        const double t0 = pr * zr - pi * zi;
-        pi = pr * zi + pi * zr;
-        pr = t0;
     }
-    gsl_matrix_view Gm = gsl_matrix_view_array(G, p - 2, p - 2);
-    gsl_vector_view bv = gsl_vector_view_array(b, p - 2);
+    const size_t q = p - 2;
+    double G[9] = {s_rr, s_ri, s_r, s_ri, s_ii, s_i, s_r, s_i, (double)n};
+    double b[3] = {b_r, b_i, b_1};
+    if (q == 2)
+        G[2] = s_ri, G[3] = s_ii; /* 2 x 2 in the first four places */
+    gsl_matrix_view Gm = gsl_matrix_view_array(G, q, q);
+    gsl_vector_view bv = gsl_vector_view_array(b, q);
     if (gsl_linalg_cholesky_decomp1(&Gm.matrix) != GSL_SUCCESS ||
         gsl_linalg_cholesky_svx(&Gm.matrix, &bv.vector) != GSL_SUCCESS)
         return -1;
-    for (size_t i = 0; i < p - 2; i++)
+    for (size_t i = 0; i < q; i++)
         c[i + 2] = b[i];
     return 0;
 }
