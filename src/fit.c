@@ -35,12 +35,19 @@ typedef struct job_ctx {
     int probe_offset;     /* the segmenter found the current resting away from zero */
     size_t longest;       /* samples of the longest burst (ring-down: fragments are short) */
     lobe_fit *lobes;
+    double *start;        /* per burst: the plain fit's alpha (1/s) and wd (rad/s) */
+    size_t nblocks;       /* bursts are fitted in blocks of BLOCK (jobs below nblocks) */
     size_t njobs;
     atomic_size_t next;
     atomic_int nomem;
 } job_ctx;
 
 static const double NANV = NAN;
+
+/* Bursts per job. Inside a block each burst's fit starts from the previous burst's
+ * result (neighbours share the tank), the first one from the matrix pencil: a fixed
+ * partition, so the results do not depend on the thread count. */
+#define BLOCK 32
 
 void tf_fit_options_init(tf_fit_options *o)
 {
@@ -81,7 +88,8 @@ static double tank_l(const job_ctx *c, double w0)
     return NANV;
 }
 
-static void fit_one_burst(const job_ctx *c, tf_dsfit_workspace *ws, size_t k)
+/* Fit burst k, started from start (alpha, wd of a neighbour) when not NULL. */
+static void fit_one_burst(const job_ctx *c, tf_dsfit_workspace *ws, size_t k, const double *start)
 {
     const tf_burst *sb = &c->seg->bursts[k];
     tf_fit_burst *b = &c->out[k];
@@ -119,7 +127,8 @@ static void fit_one_burst(const job_ctx *c, tf_dsfit_workspace *ws, size_t k)
     }
     tf_dsfit fit;
     tf_error e;
-    if (tf_dsfit_run(ws, c->x + i0, i1 - i0, c->dt, &o, &fit, &e) != TF_OK) {
+    if ((start ? tf_dsfit_run_from(ws, c->x + i0, i1 - i0, c->dt, &o, start[0], start[1], &fit, &e)
+               : tf_dsfit_run(ws, c->x + i0, i1 - i0, c->dt, &o, &fit, &e)) != TF_OK) {
         b->status = TF_FITB_FAILED;
         return;
     }
@@ -162,7 +171,20 @@ static void fit_one_burst(const job_ctx *c, tf_dsfit_workspace *ws, size_t k)
         }
         b->resistance_raw_ohm = 2 * fit.raw_alpha_per_s * lraw;
     }
+    c->start[2 * k] = fit.raw_alpha_per_s;
+    c->start[2 * k + 1] = fit.raw_wd_rad_s;
     b->status = TF_FITB_OK;
+}
+
+static void fit_block(const job_ctx *c, tf_dsfit_workspace *ws, size_t blk)
+{
+    const size_t k0 = blk * BLOCK, k1 = k0 + BLOCK < c->seg->nbursts ? k0 + BLOCK : c->seg->nbursts;
+    const double *start = NULL;
+    for (size_t k = k0; k < k1; k++) {
+        fit_one_burst(c, ws, k, start);
+        if (c->out[k].status == TF_FITB_OK)
+            start = &c->start[2 * k];
+    }
 }
 
 static void fit_one_lobe(const job_ctx *c, tf_dsfit_workspace *ws, size_t k)
@@ -174,11 +196,15 @@ static void fit_one_lobe(const job_ctx *c, tf_dsfit_workspace *ws, size_t k)
     size_t i1 = l->i1 > c->n ? c->n : l->i1;
     if (l->clipped || i1 <= l->i0 || i1 - l->i0 < 16)
         return;
-    if (l->burst < c->seg->nbursts && c->out[l->burst].status != TF_FITB_OK)
+    const int own = l->burst < c->seg->nbursts;
+    if (own && c->out[l->burst].status != TF_FITB_OK)
         return;
     tf_dsfit f;
     tf_error e;
-    if (tf_dsfit_run(ws, c->x + l->i0, i1 - l->i0, c->dt, NULL, &f, &e) != TF_OK)
+    /* started from its burst's plain fit (a lobe is half of it) */
+    if ((own ? tf_dsfit_run_from(ws, c->x + l->i0, i1 - l->i0, c->dt, NULL, c->start[2 * l->burst],
+                                 c->start[2 * l->burst + 1], &f, &e)
+             : tf_dsfit_run(ws, c->x + l->i0, i1 - l->i0, c->dt, NULL, &f, &e)) != TF_OK)
         return;
     r->ok = 1;
     r->fd_hz = f.wd_rad_s / (2 * M_PI);
@@ -193,30 +219,32 @@ static void *worker(void *arg)
         atomic_store(&c->nomem, 1);
         return NULL;
     }
-    const size_t nb = c->seg->nbursts;
     for (;;) {
         size_t k = atomic_fetch_add(&c->next, 1);
         if (k >= c->njobs)
             break;
-        if (k < nb)
-            fit_one_burst(c, ws, k);
+        if (k < c->nblocks)
+            fit_block(c, ws, k);
         else
-            fit_one_lobe(c, ws, k - nb);
+            fit_one_lobe(c, ws, k - c->nblocks);
     }
     tf_dsfit_workspace_destroy(ws);
     return NULL;
 }
 
-/* Lobes need their burst's status: bursts first (all), then lobes. */
-static int run_jobs(job_ctx *c, size_t njobs, int threads)
+/* Lobes need their burst's status: bursts first (all), then lobes. Jobs [next, njobs)
+ * standing for `items` fits. */
+static int run_jobs(job_ctx *c, size_t njobs, size_t items, int threads)
 {
     c->njobs = njobs;
     pthread_t th[16];
     int nt = threads;
     if (nt > 16)
         nt = 16;
-    if ((size_t)nt > njobs / 32 + 1)
-        nt = (int)(njobs / 32 + 1);
+    if ((size_t)nt > items / 32 + 1)
+        nt = (int)(items / 32 + 1);
+    if ((size_t)nt > njobs - atomic_load(&c->next))
+        nt = (int)(njobs - atomic_load(&c->next));
     int started = 0;
     for (int t = 1; t < nt; t++)
         if (pthread_create(&th[started], NULL, worker, c) == 0)
@@ -530,8 +558,9 @@ tf_status tf_fit_run(const tf_capture *cap, const tf_roles *roles, const tf_segm
     tf_fit_burst *fb = calloc(nb, sizeof *fb);
     lobe_fit *lf = calloc(nl + 1, sizeof *lf);
     double *scratch = malloc((2 * (nb > nl ? nb : nl) + 16) * sizeof *scratch);
-    if (!r || !d || !fb || !lf || !scratch) {
-        free(r); free(d); free(fb); free(lf); free(scratch);
+    double *start = malloc(2 * nb * sizeof *start);
+    if (!r || !d || !fb || !lf || !scratch || !start) {
+        free(r); free(d); free(fb); free(lf); free(scratch); free(start);
         return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
     }
     d->bursts = fb;
@@ -557,6 +586,8 @@ tf_status tf_fit_run(const tf_capture *cap, const tf_roles *roles, const tf_segm
                    (seg->topology == TF_TOPO_FULL_BRIDGE ? 2.0 : 1.0);
     c.out = fb;
     c.lobes = lf;
+    c.start = start;
+    c.nblocks = (nb + BLOCK - 1) / BLOCK;
     for (size_t k = 0; k < seg->nanomalies; k++)
         c.probe_offset |= strcmp(seg->anomalies[k].kind, "offset") == 0;
     for (size_t k = 0; k < nb; k++) {
@@ -568,8 +599,11 @@ tf_status tf_fit_run(const tf_capture *cap, const tf_roles *roles, const tf_segm
     atomic_init(&c.next, 0);
     atomic_init(&c.nomem, 0);
     const int threads = opt->threads > 0 ? opt->threads : default_threads();
-    if (run_jobs(&c, nb, threads) != 0 ||
-        (nl && (atomic_store(&c.next, nb), run_jobs(&c, nb + nl, threads) != 0))) {
+    const int failed = run_jobs(&c, c.nblocks, nb, threads) != 0 ||
+                       (nl && (atomic_store(&c.next, c.nblocks),
+                               run_jobs(&c, c.nblocks + nl, nl, threads) != 0));
+    free(start);
+    if (failed) {
         tf_fit_free(r);
         free(lf);
         free(scratch);

@@ -60,4 +60,13 @@ double tf_fit_interp(const float *x, size_t n, double pos);
 tf_status tf_dsfit_run_gsl(tf_dsfit_workspace *w, const float *x, size_t n, double dt_s,
                            const tf_dsfit_options *o, tf_dsfit *out, tf_error *err);
 
+/* tf_dsfit_run started from (alpha0, wd0) in place of the matrix pencil (a neighbouring
+ * burst's plain fit, say). The start is accepted when the plain fit meets its
+ * convergence test and its pole alpha + j wd lies within 20 % of the start's modulus
+ * of the start; otherwise the fit is redone from the matrix pencil. The result then
+ * depends on the start only within the convergence tolerance (1 % of u). */
+tf_status tf_dsfit_run_from(tf_dsfit_workspace *w, const float *x, size_t n, double dt_s,
+                            const tf_dsfit_options *o, double alpha0_per_s, double wd0_rad_s,
+                            tf_dsfit *out, tf_error *err);
+
 #endif

@@ -16,6 +16,7 @@
 #define NCACHE 6         /* GSL workspaces kept per thread (by padded length) */
 #define RESYNC 256       /* recompute exp/cos/sin exactly every RESYNC samples */
 #define FINE_MAX 512     /* first-stage block averages of the pencil start */
+#define WARM_MOVE 0.2    /* a warm start is kept when the pole moved less than this share */
 
 typedef struct cache_ent {
     size_t n, p;
@@ -619,8 +620,9 @@ static void step_scale(const double *H, size_t P, double rss, size_t n, double *
  * uncertainty; such a last step is applied without another pass (H and the
  * residual change by a negligible second-order amount). */
 static int run_fast(model_ctx *m, double *par, int maxit, int *iters, double *H_out,
-                    double *rss_out)
+                    double *rss_out, int *conv)
 {
+    *conv = 0;
     const size_t P = m->p;
     double H[25], g[5], Hn[25], gn[5], d[5], trial[5], u[2];
     double rss = accumulate(par, m, H, g), lambda = 1e-4;
@@ -636,6 +638,7 @@ static int run_fast(model_ctx *m, double *par, int maxit, int *iters, double *H_
         if (small && lambda <= 1e-3) {
             for (size_t i = 0; i < P; i++)
                 par[i] += d[i];
+            *conv = 1;
             break;
         }
         for (size_t i = 0; i < P; i++)
@@ -661,9 +664,16 @@ static int run_fast(model_ctx *m, double *par, int maxit, int *iters, double *H_
     return 0;
 }
 
+/* The fit, from the matrix pencil's start or, when start is not NULL, from the given
+ * (alpha, wd) in per-sample units; *conv (may be NULL) says whether the plain fit
+ * met its convergence test. */
 static tf_status fit_core(int use_gsl, tf_dsfit_workspace *w, const float *x, size_t n,
-                          double dt_s, const tf_dsfit_options *o, tf_dsfit *out, tf_error *err)
+                          double dt_s, const tf_dsfit_options *o, const double *start,
+                          tf_dsfit *out, int *conv, tf_error *err)
 {
+    int conv_plain = 1, conv_drop = 1;
+    if (conv)
+        *conv = 0;
     memset(out, 0, sizeof *out);
     out->offset_a = out->u_offset_a = NAN;
     if (!w || !x || n < 8 || !(dt_s > 0))
@@ -676,7 +686,10 @@ static tf_status fit_core(int use_gsl, tf_dsfit_workspace *w, const float *x, si
     const int maxit = o && o->max_iter > 0 ? o->max_iter : 50;
     const size_t p = offset ? 5 : 4;
     double par[5] = {0}, H[25], rss = NAN;
-    if (pencil_start(w, x, n, offset ? 3 : 2, &par[0], &par[1]) != 0) {
+    if (start) {
+        par[0] = start[0];
+        par[1] = start[1];
+    } else if (pencil_start(w, x, n, offset ? 3 : 2, &par[0], &par[1]) != 0) {
         /* no oscillation seen by the pencil (a single lobe, say): half a period */
         par[0] = 0.0;
         par[1] = M_PI / (double)n;
@@ -690,7 +703,8 @@ static tf_status fit_core(int use_gsl, tf_dsfit_workspace *w, const float *x, si
         return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
     model_ctx m = {x, n, p, NULL, NULL, 0, 0.0};
     int iters = 0;
-    if ((use_gsl ? run_lm(ws, &m, par, maxit, &iters) : run_fast(&m, par, maxit, &iters, H, &rss)) != 0)
+    if ((use_gsl ? run_lm(ws, &m, par, maxit, &iters)
+                 : run_fast(&m, par, maxit, &iters, H, &rss, &conv_plain)) != 0)
         return tf_error_set(err, TF_ERR_NUMERIC, "damped-sine fit did not converge");
     {
         /* the plain fit, kept whatever follows */
@@ -742,7 +756,7 @@ static tf_status fit_core(int use_gsl, tf_dsfit_workspace *w, const float *x, si
                     par[0] += par[1] / M_PI * log(1.0 - rel);
             }
             if ((use_gsl ? run_lm(ws, &m, par, maxit, &iters)
-                         : run_fast(&m, par, maxit, &iters, H, &rss)) != 0)
+                         : run_fast(&m, par, maxit, &iters, H, &rss, &conv_drop)) != 0)
                 return tf_error_set(err, TF_ERR_NUMERIC, "drop-corrected fit did not converge");
         }
         out->ncross = m.ncross;
@@ -775,17 +789,35 @@ static tf_status fit_core(int use_gsl, tf_dsfit_workspace *w, const float *x, si
     }
     out->residual_rms = sqrt(rss / (double)n);
     out->iterations = iters;
+    if (conv)
+        *conv = conv_plain && conv_drop;
     return TF_OK;
 }
 
 tf_status tf_dsfit_run(tf_dsfit_workspace *w, const float *x, size_t n, double dt_s,
                        const tf_dsfit_options *o, tf_dsfit *out, tf_error *err)
 {
-    return fit_core(0, w, x, n, dt_s, o, out, err);
+    return fit_core(0, w, x, n, dt_s, o, NULL, out, NULL, err);
+}
+
+tf_status tf_dsfit_run_from(tf_dsfit_workspace *w, const float *x, size_t n, double dt_s,
+                            const tf_dsfit_options *o, double alpha0_per_s, double wd0_rad_s,
+                            tf_dsfit *out, tf_error *err)
+{
+    if (w && dt_s > 0 && isfinite(alpha0_per_s) && wd0_rad_s > 0 && wd0_rad_s * dt_s < M_PI) {
+        const double st[2] = {alpha0_per_s * dt_s, wd0_rad_s * dt_s};
+        int conv = 0;
+        if (fit_core(0, w, x, n, dt_s, o, st, out, &conv, err) == TF_OK && conv &&
+            hypot(out->raw_alpha_per_s - alpha0_per_s, out->raw_wd_rad_s - wd0_rad_s) <=
+                WARM_MOVE * hypot(alpha0_per_s, wd0_rad_s))
+            return TF_OK;
+        tf_error_clear(err);
+    }
+    return fit_core(0, w, x, n, dt_s, o, NULL, out, NULL, err);
 }
 
 tf_status tf_dsfit_run_gsl(tf_dsfit_workspace *w, const float *x, size_t n, double dt_s,
                            const tf_dsfit_options *o, tf_dsfit *out, tf_error *err)
 {
-    return fit_core(1, w, x, n, dt_s, o, out, err);
+    return fit_core(1, w, x, n, dt_s, o, NULL, out, NULL, err);
 }
