@@ -228,9 +228,11 @@ static void *chain_worker(void *arg)
         if (!is_zero_kind(r[j].k_start))
             continue;
         size_t q = j;
-        /* a ring-down's tail fades into the noise: the chain keeps the strong lobes */
-        while (q + 1 < c->n && r[q].k_end == SEG_B_DIRECT && q - j + 1 < 64 &&
-               r[q + 1].pk > 3 * c->in->band)
+        /* a ring-down's tail fades into the noise: the chain runs on while its lobes
+         * are whole (a lobe the noise breaks into fragments ends it: no straight
+         * crossing there), down to the weakest the scan keeps; their zeros follow
+         * from the strong lobes' w */
+        while (q + 1 < c->n && r[q].k_end == SEG_B_DIRECT && q - j + 1 < 64)
             q++;
         if (q == j)
             continue;
@@ -276,6 +278,18 @@ void seg_refine_boundaries(const seg_input *in, seg_vec *runs, tf_topology topo)
      * zeros, so each lobe gets its own model with an offset term */
     int single = topo == TF_TOPO_SINGLE;
     (void)prior;
+    /* a ring-down is one free oscillation: it does not rest between its lobes until it
+     * stops. Where its tail is a few code steps high, the current sits on the zero code
+     * for many samples at each crossing and the line fits of the gap rule read a dead
+     * zone there; a decaying lobe of the other sign after it is the same oscillation
+     * (a new excitation rises to more than twice the lobe before it) */
+    if (topo == TF_TOPO_RING_DOWN)
+        for (size_t j = 0; j + 1 < runs->n; j++)
+            if (is_zero_kind(r[j].k_end) && r[j + 1].sign != r[j].sign &&
+                r[j + 1].pk <= 2 * r[j].pk) {
+                r[j].k_end = r[j + 1].k_start = SEG_B_DIRECT;
+                r[j].t_end = r[j + 1].t_start = 0.5 * (r[j].t_end + r[j + 1].t_start);
+            }
     /* chains: from a lobe rising out of zero, through straight crossings, to a lobe
      * that returns to zero (or runs off the record); two threads on long records */
     if (!single) {
@@ -474,7 +488,7 @@ tf_status tf_segment_run(const tf_capture *cap, const tf_roles *roles,
     seg_vec_init(&fire, 2 * sizeof(double));
     tf_status st = scan_parallel(x, n, band, &exc);
     if (st == TF_OK)
-        st = seg_runs_from_excursions(x, n, band, &exc, &runs);
+        st = seg_runs_from_excursions(x, n, band, lsb, &exc, &runs);
     seg_vec_free(&exc);
     if (st == TF_OK)
         st = seg_find_clipping(x, lo, hi, lsb, &runs, &clips);

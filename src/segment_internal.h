@@ -109,8 +109,9 @@ tf_topology seg_infer_topology(const seg_input *in, const seg_run *r, size_t nr,
 tf_status seg_scan(const float *x, size_t n, double band, seg_vec *exc);
 
 /* Excursions to runs: drop noise fragments, merge dips, classify each gap and put
- * rough sub-sample boundaries (index units). */
-tf_status seg_runs_from_excursions(const float *x, size_t n, double band, const seg_vec *exc,
+ * rough sub-sample boundaries (index units). lsb: the quantisation step (0: none). */
+tf_status seg_runs_from_excursions(const float *x, size_t n, double band, double lsb,
+                                   const seg_vec *exc,
                                    seg_vec *runs);
 
 /* Least-squares line through x[a..b] (inclusive, index units); returns 0 and its

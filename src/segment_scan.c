@@ -211,15 +211,18 @@ static double minabs(const float *x, size_t a, size_t b)
 }
 
 /* Samples a run's current takes to cross the band near its zero, from its own shape
- * (a half sine of its length and peak): bounds a noisy line's extrapolation. */
+ * (a half sine of its peak, whose out-of-band part is the run: the half sine is the
+ * run and this travel at either end, which matters on lobes a few bands high): bounds
+ * a noisy line's extrapolation. */
 static double band_travel(const seg_run *r, double band)
 {
-    double len = (double)(r->i1 - r->i0 + 1);
-    return band * len / (M_PI * (double)r->pk) + 1.0;
+    double len = (double)(r->i1 - r->i0 + 1), d = M_PI * (double)r->pk - 2 * band;
+    return band * len / (d > M_PI * band ? d : M_PI * band) + 1.0;
 }
 
-/* Classify the gap between runs a and b and set their boundaries. */
-static void classify_gap(const float *x, double band, seg_run *a, seg_run *b)
+/* Classify the gap between runs a and b and set their boundaries. lsb: quantisation
+ * step (0: none). */
+static void classify_gap(const float *x, double band, double lsb, seg_run *a, seg_run *b)
 {
     double ze = edge_zero(x, a, 1), zs = edge_zero(x, b, 0);
     double lo = (double)a->i1, hi = (double)b->i0;
@@ -235,8 +238,16 @@ static void classify_gap(const float *x, double band, seg_run *a, seg_run *b)
      * re-enter it, and the short lines then put a false dead zone there (a diode lobe
      * read as the next firing, 2 to 6 in 5556 bursts at 40 dB): a dead zone there must
      * outlast the band-crossing time the lobes' own shapes give */
-    if (a->sign != b->sign)
-        thr = fmax(thr, band_travel(a, band) + band_travel(b, band));
+    /* A quantised sample on the band's code stands for currents up to half a step
+     * beyond it, so the stretch that reads as in-band is that much wider; and a
+     * decaying lobe ends less steeply than the half sine of its peak (by
+     * e^(-pi / 4Q): up to 1.3 x the travel at Q >= 3). A ring-down's tail a few
+     * steps high sits on the zero and band codes for tens of samples at each
+     * crossing, and read as dead zones without both */
+    if (a->sign != b->sign) {
+        double eff = band + 0.5 * lsb;
+        thr = fmax(thr, 1.3 * band_travel(a, eff) + band_travel(b, eff));
+    }
     if (dead > thr) {
         a->k_end = b->k_start = SEG_B_DEAD;
         a->t_end = ze;
@@ -266,8 +277,8 @@ static void classify_gap(const float *x, double band, seg_run *a, seg_run *b)
     a->t_end = b->t_start = z;
 }
 
-tf_status seg_runs_from_excursions(const float *x, size_t n, double band, const seg_vec *exc,
-                                   seg_vec *runs)
+tf_status seg_runs_from_excursions(const float *x, size_t n, double band, double lsb,
+                                   const seg_vec *exc, seg_vec *runs)
 {
     const seg_exc *e = exc->data;
     seg_run cur;
@@ -306,7 +317,7 @@ tf_status seg_runs_from_excursions(const float *x, size_t n, double band, const 
     }
     seg_run *r = runs->data;
     for (size_t j = 0; j + 1 < runs->n; j++)
-        classify_gap(x, band, &r[j], &r[j + 1]);
+        classify_gap(x, band, lsb, &r[j], &r[j + 1]);
     if (runs->n) {
         /* capture edges: a lobe cut by the record start or end is partial */
         seg_run *f = &r[0], *l = &r[runs->n - 1];

@@ -603,35 +603,82 @@ static void test_segment_no_pattern(void **state)
     tf_capture_destroy(cap);
 }
 
-static void test_segment_ring_down(void **state)
+/* min_faint: lobes below 8 bands (the faint tail) the record must hold */
+static void ring_down_case(double R, int bits, double range, size_t min_shown, size_t min_faint)
 {
-    (void)state;
     segw_cfg c;
     segw_defaults(&c);
     c.topo = TF_TOPO_RING_DOWN;
     c.E = 400;
-    c.R = 0.15;
+    c.R = R;
     c.duration_s = 1.5e-3;
     c.snr_db = 40;
+    c.bits = bits;
+    c.range = range;
     segw_out w;
     assert_int_equal(segw_make(&c, &w), 0);
     tf_segment_result *r = segment(&w, TF_TOPO_UNKNOWN);
+    if (r->topology != TF_TOPO_RING_DOWN)
+        fprintf(stderr, "ring-down R %g: %s (%s)\n", R, tf_topology_name(r->topology),
+                r->topology_evidence);
     assert_int_equal(r->topology, TF_TOPO_RING_DOWN);
     /* alternating lobes of one free oscillation, each pi / wd long (textbook series
-     * RLC response) while the lobes stand well above the noise */
+     * RLC response), every device T1 or D1 */
     size_t good = 0;
     for (size_t j = 0; j + 1 < r->nlobes; j++) {
         const tf_lobe *l = &r->lobes[j];
         assert_int_equal(l->device, l->sign == r->lobes[0].sign ? TF_DEV_T1 : TF_DEV_D1);
-        if (fabs(l->peak_a) > 40 && !l->partial) {
+        if (fabs(l->peak_a) > 8 * r->band_a && !l->partial) {
             assert_true(fabs((l->end_s - l->start_s) - M_PI / w.wd) < 0.5 * w.cap->dt_s);
             good++;
         }
     }
-    assert_true(good >= 8);
+    assert_true(good >= 5);
+    /* every lobe the capture can show (true peak at least two bands, the scan's floor
+     * for a lobe, docs/segmenter.md) is found, attributed and within 0.5 sample
+     * (issue 4), the faint tail included */
+    double dt = w.cap->dt_s, dur = (double)w.cap->n * dt, worst = 0;
+    size_t shown = 0, faint = 0;
+    for (size_t v = 0; v < w.niv; v++) {
+        const segw_interval *iv = &w.iv[v];
+        if (iv->t0 < 2e-6 || iv->t1 > dur - 2e-6 || iv->peak < 2 * r->band_a)
+            continue;
+        const tf_lobe *l = NULL;
+        for (size_t j = 0; j < r->nlobes && !l; j++)
+            if (fabs(r->lobes[j].start_s - iv->t0) < 0.25 * (iv->t1 - iv->t0) &&
+                fabs(r->lobes[j].end_s - iv->t1) < 0.25 * (iv->t1 - iv->t0))
+                l = &r->lobes[j];
+        if (!l)
+            fprintf(stderr, "ring-down lobe %.9f..%.9f (peak %.3g A, band %.3g A) not found\n",
+                    iv->t0, iv->t1, iv->peak, r->band_a);
+        assert_non_null(l);
+        /* the generator names a ring-down's lobes by sign, the segmenter by the first
+         * lobe's direction (the loop above checks that): the sign must follow the truth */
+        assert_int_equal(l->device == TF_DEV_T1, iv->dev == w.iv[0].dev);
+        double e = fmax(fabs(l->start_s - iv->t0), fabs(l->end_s - iv->t1)) / dt;
+        if (e > 0.5)
+            fprintf(stderr, "ring-down lobe %.9f (peak %.3g A): %+.3f / %+.3f samples\n", iv->t0,
+                    iv->peak, (l->start_s - iv->t0) / dt, (l->end_s - iv->t1) / dt);
+        assert_true(e <= 0.5);
+        worst = fmax(worst, e);
+        shown++;
+        faint += iv->peak < 8 * r->band_a;
+    }
+    if (getenv("SEG_ERR"))
+        fprintf(stderr, "ring-down: %zu lobes shown (%zu below 8 bands), largest error %.3f "
+                "sample\n", shown, faint, worst);
+    assert_true(shown >= min_shown && faint >= min_faint);
     assert_int_equal(r->nbursts, 1);
     tf_segment_free(r);
     segw_free(&w);
+}
+
+static void test_segment_ring_down(void **state)
+{
+    (void)state;
+    ring_down_case(0.15, 0, 0, 19, 0);
+    /* a faster decay into 8-bit quantisation over +/-500 A: the tail fades out */
+    ring_down_case(0.35, 8, 500, 12, 2);
 }
 
 static void test_segment_clipped_current(void **state)
@@ -884,10 +931,12 @@ static void sim_free(sim_case *c)
     tf_capture_destroy(c->cap);
 }
 
-/* Every simulated interval away from the record's edges and well above the noise is a
- * lobe with the right device; zero crossings within 0.5 sample, boundaries at firings
- * within 1 sample; turn-off time available within 1 sample + 0.5 % (issue 4). */
-static void sim_check(const sim_case *c, double min_peak_a, size_t min_count, int check_turnoff)
+/* Every simulated interval away from the record's edges that the capture can show (its
+ * true peak at least two of the segmenter's bands, the scan's floor for a lobe:
+ * docs/segmenter.md) is a lobe with the right device; zero crossings within 0.5 sample,
+ * boundaries at firings within 1 sample; turn-off time available within 1 sample +
+ * 0.5 % (issue 4). */
+static void sim_check(const sim_case *c, size_t min_count, int check_turnoff)
 {
     const double dt = c->cap->dt_s, end = (double)c->cap->n * dt;
     const tf_segment_result *r = c->r;
@@ -899,7 +948,7 @@ static void sim_check(const sim_case *c, double min_peak_a, size_t min_count, in
         double t1 = json_real_value(json_object_get(v, "end_s"));
         double pk = json_real_value(json_object_get(v, "peak_a"));
         const char *dev = json_string_value(json_object_get(v, "device"));
-        if (t0 < 2e-6 || t1 > end - 2e-6 || fabs(pk) < min_peak_a)
+        if (t0 < 2e-6 || t1 > end - 2e-6 || fabs(pk) < 2 * r->band_a)
             continue;
         const tf_lobe *l = NULL;
         for (size_t j = 0; j < r->nlobes && !l; j++)
@@ -943,6 +992,7 @@ static void sim_check(const sim_case *c, double min_peak_a, size_t min_count, in
     assert_true(nto >= 5);
 }
 
+
 static void test_segment_sim_half_bridge_current_only(void **state)
 {
     (void)state;
@@ -951,7 +1001,7 @@ static void test_segment_sim_half_bridge_current_only(void **state)
     assert_int_equal(c.r->topology, TF_TOPO_HALF_BRIDGE);
     assert_string_equal(tf_mode_name(c.r->mode),
                         json_string_value(json_object_get(c.truth, "mode")));
-    sim_check(&c, 10, 8, 1);
+    sim_check(&c, 8, 1);
     assert_int_equal(c.r->nanomalies, 0);
     sim_free(&c);
 }
@@ -963,7 +1013,7 @@ static void test_segment_sim_half_bridge_overlapping_gates(void **state)
     sim_run(&c, sim_design("half-bridge", "10 kHz", "10 us", "", ""), 1);
     assert_string_equal(json_string_value(json_object_get(c.truth, "mode")), "overlapping");
     assert_int_equal(c.r->mode, TF_MODE_OVERLAPPING);
-    sim_check(&c, 10, 8, 1);
+    sim_check(&c, 8, 1);
     /* the switch voltage here is 8-bit over +/-1 kV (7.8 V steps): it cannot show a
      * reverse bias of one diode drop, so no reverse-bias time is claimed */
     assert_int_equal(c.r->reverse_bias_s.count, 0);
@@ -985,7 +1035,7 @@ static void test_segment_sim_full_bridge_clipped(void **state)
     for (size_t j = 0; j < c.r->nlobes; j++)
         marked += c.r->lobes[j].clipped;
     assert_true(marked >= 1);
-    sim_check(&c, 10, 8, 1);
+    sim_check(&c, 8, 1);
     sim_free(&c);
 }
 
@@ -997,7 +1047,7 @@ static void test_segment_sim_single_switch(void **state)
                            "reset_inductance = 2 mH\nreset_resistance = 0.8 ohm", ""), 0);
     assert_int_equal(c.r->topology, TF_TOPO_SINGLE);
     assert_int_equal(c.r->mode, TF_MODE_NON_OVERLAPPING);
-    sim_check(&c, 10, 8, 1);
+    sim_check(&c, 8, 1);
     sim_free(&c);
 }
 
@@ -1008,9 +1058,10 @@ static void test_segment_sim_ring_down(void **state)
     sim_run(&c, sim_design("ring-down", "", "20 us", "precharge = 300 V",
                            "400 A"), 0);
     assert_int_equal(c.r->topology, TF_TOPO_RING_DOWN);
-    /* lobes standing well above the 8-bit step (about 3 A here): the first six or seven
-     * of a tank with Q about 9; the tail fades into the quantisation */
-    sim_check(&c, 20, 6, 0);
+    /* the 8-bit step is about 3 A here and sets the band: every lobe down to two steps,
+     * the tail of a tank with Q about 9 included (11 of its 17 lobes past the first,
+     * which starts with the record; the last four stay within a step of zero) */
+    sim_check(&c, 11, 0);
     sim_free(&c);
 }
 

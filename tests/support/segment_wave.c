@@ -58,7 +58,7 @@ static int push_iv(sim *s, tf_device d, double t0, double t1, int refire)
             return -1;
         s->iv = q;
     }
-    s->iv[s->niv++] = (segw_interval){d, t0, t1, refire};
+    s->iv[s->niv++] = (segw_interval){d, t0, t1, refire, 0.0};
     return 0;
 }
 
@@ -291,6 +291,12 @@ int segw_make(const segw_cfg *c, segw_out *o)
         s2 += v * v;
     }
     o->rms = sqrt(s2 / (double)(n ? n : 1));
+    for (size_t v = 0; v < s.niv; v++) {
+        double pk = 0;
+        for (size_t k = (size_t)fmax(0.0, ceil(s.iv[v].t0 * c->fs)); k < n && (double)k / c->fs <= s.iv[v].t1; k++)
+            pk = fmax(pk, fabs((double)x[k]));
+        s.iv[v].peak = pk;
+    }
     double sigma = c->snr_db > 0 ? o->rms / pow(10, c->snr_db / 20) : c->noise;
     o->noise = sigma;
     for (size_t k = 0; k < n; k++) {

@@ -29,6 +29,7 @@ typedef struct segw_interval {
     tf_device dev;
     double t0, t1;
     int refire;             /* a thyristor interval that started without a firing */
+    double peak;            /* largest |current| of the clean samples inside it, A */
 } segw_interval;
 
 typedef struct segw_out {
