@@ -771,17 +771,16 @@ static tf_status run_vi_power(const tf_capture *cap, const tf_roles *roles,
     if (seg->topology == TF_TOPO_RING_DOWN)
         nbnd = 0; /* one release, no firing periods */
     if (nbnd >= 2) {
-        double rp, up;
         const double sk = isfinite(r->skew_s) ? r->skew_s : 0.0;
-        if (tf_power_resistance(v, i, n, cap->dt_s, sk, bnd, nbnd, &rp, &up, err) == TF_OK) {
-            /* add the skew's share of the uncertainty */
-            if (isfinite(r->skew_u_s) && r->skew_u_s > 0) {
-                double r1, r2, du;
-                tf_power_resistance(v, i, n, cap->dt_s, sk + r->skew_u_s, bnd, nbnd, &r1, &du, err);
-                tf_power_resistance(v, i, n, cap->dt_s, sk - r->skew_u_s, bnd, nbnd, &r2, &du, err);
-                up = hypot(up, 0.5 * fabs(r1 - r2));
-            }
-            est_set(&r->power_r, rp, up, "power");
+        /* the skew's share of the uncertainty from R at skew +- u: one pass for all three */
+        const int with_u = isfinite(r->skew_u_s) && r->skew_u_s > 0;
+        const double skews[3] = {sk, sk + r->skew_u_s, sk - r->skew_u_s};
+        double rp[3], up[3];
+        if (tf_power_resistance(v, i, n, cap->dt_s, skews, with_u ? 3 : 1, bnd, nbnd,
+                                tf_fit_threads(opt->threads), rp, up, err) == TF_OK) {
+            if (with_u)
+                up[0] = hypot(up[0], 0.5 * fabs(rp[1] - rp[2]));
+            est_set(&r->power_r, rp[0], up[0], "power");
         } else
             tf_error_clear(err);
     } else

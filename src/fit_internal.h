@@ -43,12 +43,15 @@ tf_status tf_vi_identify(const float *v, const float *i, size_t n, double dt_s,
                          double search_s, int threads, tf_vi_result *out, double *per_r,
                          double *per_l, double *per_c, tf_error *err);
 
-/* Power method R = mean(v i) / mean(i^2) over [i0, i1) with v delayed back by
- * skew_s; u from the spread over the given period boundaries (nb indices,
- * nb >= 2). */
+/* Power method R = mean(v i) / mean(i^2) over [bounds[0], bounds[nb - 1]) with v
+ * delayed back by each of the nsk (1..TF_POWER_MAX_SKEWS) skews skew_s[q], in one
+ * pass over the samples (periods on `threads` threads, totals in period order);
+ * r_ohm[q] and u_ohm[q] (from the spread over the periods between the nb >= 2
+ * boundary indices) for each skew. */
+#define TF_POWER_MAX_SKEWS 4
 tf_status tf_power_resistance(const float *v, const float *i, size_t n, double dt_s,
-                              double skew_s, const size_t *bounds, size_t nb, double *r_ohm,
-                              double *u_ohm, tf_error *err);
+                              const double *skew_s, size_t nsk, const size_t *bounds, size_t nb,
+                              int threads, double *r_ohm, double *u_ohm, tf_error *err);
 
 /* Value of channel x at fractional sample position pos (linear interpolation,
  * clamped at the ends). */

@@ -23,6 +23,45 @@ double tf_fit_interp(const float *x, size_t n, double pos)
     return x[k] + f * ((double)x[k + 1] - (double)x[k]);
 }
 
+/* A channel read at k + sh for a fixed shift sh (samples): linear interpolation with
+ * the integer and fractional parts split once, clamped at the ends as tf_fit_interp. */
+typedef struct shifted {
+    const float *x;
+    size_t n;
+    double sh, f;
+    long k0;
+} shifted;
+
+static shifted shifted_make(const float *x, size_t n, double sh)
+{
+    shifted s = {x, n, sh, 0.0, 0};
+    const double fl = floor(sh);
+    s.k0 = (long)fl;
+    s.f = sh - fl;
+    return s;
+}
+
+static inline double shifted_at(const shifted *s, size_t k)
+{
+    const long q = (long)k + s->k0;
+    if (q >= 0 && (size_t)q + 1 < s->n) {
+        const double a = s->x[q];
+        return a + s->f * ((double)s->x[q + 1] - a);
+    }
+    return tf_fit_interp(s->x, s->n, (double)k + s->sh);
+}
+
+/* sum_{j<m} j^p for p = 1..4 (Faulhaber's formulas) */
+static void power_sums(size_t m, double *s)
+{
+    const double M = (double)m, a = M * (M - 1.0);
+    s[0] = M;
+    s[1] = 0.5 * a;
+    s[2] = a * (2.0 * M - 1.0) / 6.0;
+    s[3] = 0.25 * a * a;
+    s[4] = a * (2.0 * M - 1.0) * (3.0 * M * M - 3.0 * M - 1.0) / 30.0;
+}
+
 /* One window: theta (R, L, vc0, 1/C, k1, k0) of the circuit equation integrated twice,
  *   II v = R II i + L I i + vc0 t^2 / 2 + (1/C) III i + k1 t + k0
  * (I: running integral from the window start, trapezoidal; v delayed back by tau
@@ -57,19 +96,35 @@ static int window_ls(const float *v, const float *i, size_t n, double dt, const 
                      double tau, double *theta, double *rss, double *cov)
 {
     double G[NPAR * NPAR] = {0}, b[NPAR] = {0}, sc[NPAR];
-    const double sh = tau / dt;
+    const shifted vs = shifted_make(v, n, tau / dt);
+    /* regressors (q2, q1, t^2/2, q3, t, 1): the sums of the last three among
+     * themselves are power sums of the sample index; the rest are named scalars
+     * (an array of regressors per sample was spilled through the stack) */
+    double g00 = 0, g01 = 0, g02 = 0, g03 = 0, g04 = 0, g05 = 0, g11 = 0, g12 = 0, g13 = 0;
+    double g14 = 0, g15 = 0, g23 = 0, g33 = 0, g34 = 0, g35 = 0;
+    double b0 = 0, b1 = 0, b2 = 0, b3 = 0, b4 = 0, b5 = 0;
     integ s0 = {0};
     for (size_t k = w->i0; k < w->i1; k++) {
-        integ_step(&s0, tf_fit_interp(v, n, (double)k + sh), i[k], dt, k == w->i0);
-        const double t = (double)(k - w->i0) * dt;
-        const double phi[NPAR] = {s0.q2, s0.q1, 0.5 * t * t, s0.q3, t, 1.0};
-        const double Y = s0.y2;
-        for (int r = 0; r < NPAR; r++) {
-            b[r] += phi[r] * Y;
-            for (int c = r; c < NPAR; c++)
-                G[r * NPAR + c] += phi[r] * phi[c];
-        }
+        integ_step(&s0, shifted_at(&vs, k), i[k], dt, k == w->i0);
+        const double t = (double)(k - w->i0) * dt, tt = 0.5 * t * t;
+        const double q2 = s0.q2, q1 = s0.q1, q3 = s0.q3, Y = s0.y2;
+        g00 += q2 * q2; g01 += q2 * q1; g02 += q2 * tt; g03 += q2 * q3; g04 += q2 * t; g05 += q2;
+        g11 += q1 * q1; g12 += q1 * tt; g13 += q1 * q3; g14 += q1 * t; g15 += q1;
+        g23 += tt * q3; g33 += q3 * q3; g34 += q3 * t; g35 += q3;
+        b0 += q2 * Y; b1 += q1 * Y; b2 += tt * Y; b3 += q3 * Y; b4 += t * Y; b5 += Y;
     }
+    double ps[5];
+    power_sums(w->i1 - w->i0, ps);
+    const double d2 = dt * dt;
+    const double up[NPAR * NPAR] = {
+        g00, g01, g02, g03, g04, g05,
+        0, g11, g12, g13, g14, g15,
+        0, 0, 0.25 * ps[4] * d2 * d2, g23, 0.5 * ps[3] * d2 * dt, 0.5 * ps[2] * d2,
+        0, 0, 0, g33, g34, g35,
+        0, 0, 0, 0, ps[2] * d2, ps[1] * dt,
+        0, 0, 0, 0, 0, ps[0]};
+    memcpy(G, up, sizeof G);
+    b[0] = b0; b[1] = b1; b[2] = b2; b[3] = b3; b[4] = b4; b[5] = b5;
     for (int r = 0; r < NPAR; r++) {
         for (int c = 0; c < r; c++)
             G[r * NPAR + c] = G[c * NPAR + r];
@@ -95,7 +150,7 @@ static int window_ls(const float *v, const float *i, size_t n, double dt, const 
     double s = 0;
     integ s1 = {0};
     for (size_t k = w->i0; k < w->i1; k++) {
-        integ_step(&s1, tf_fit_interp(v, n, (double)k + sh), i[k], dt, k == w->i0);
+        integ_step(&s1, shifted_at(&vs, k), i[k], dt, k == w->i0);
         const double t = (double)(k - w->i0) * dt;
         const double e = s1.y2 - (theta[0] * s1.q2 + theta[1] * s1.q1 + theta[2] * 0.5 * t * t +
                                   theta[3] * s1.q3 + theta[4] * t + theta[5]);
@@ -349,36 +404,77 @@ tf_status tf_vi_identify(const float *v, const float *i, size_t n, double dt_s,
     return TF_OK;
 }
 
+/* Per-period sums of the power method: pp[q] = sum v(k + sh_q) i[k] for each skew and
+ * ii = sum i^2, one period per job (the periods are independent). */
+typedef struct power_job {
+    const float *v, *i;
+    size_t n;
+    const shifted *vs;
+    size_t nsk;
+    const size_t *bounds;
+    double *sums;   /* (nsk + 1) per period */
+} power_job;
+
+static void power_one(void *ctx, size_t q)
+{
+    const power_job *j = ctx;
+    double pp[TF_POWER_MAX_SKEWS] = {0}, ii = 0;
+    for (size_t k = j->bounds[q]; k < j->bounds[q + 1]; k++) {
+        const double ik = j->i[k];
+        for (size_t s = 0; s < j->nsk; s++)
+            pp[s] += shifted_at(&j->vs[s], k) * ik;
+        ii += ik * ik;
+    }
+    double *o = j->sums + q * (j->nsk + 1);
+    for (size_t s = 0; s < j->nsk; s++)
+        o[s] = pp[s];
+    o[j->nsk] = ii;
+}
+
 tf_status tf_power_resistance(const float *v, const float *i, size_t n, double dt_s,
-                              double skew_s, const size_t *bounds, size_t nb, double *r_ohm,
-                              double *u_ohm, tf_error *err)
+                              const double *skew_s, size_t nsk, const size_t *bounds, size_t nb,
+                              int threads, double *r_ohm, double *u_ohm, tf_error *err)
 {
     if (nb < 2 || bounds[nb - 1] > n || bounds[0] >= bounds[nb - 1])
         return tf_error_set(err, TF_ERR_USAGE, "power method: expected whole periods");
-    const double sh = skew_s / dt_s;
-    double p = 0, i2 = 0, sr = 0, sr2 = 0;
-    size_t np = 0;
-    for (size_t q = 0; q + 1 < nb; q++) {
-        double pp = 0, ii = 0;
-        for (size_t k = bounds[q]; k < bounds[q + 1]; k++) {
-            pp += tf_fit_interp(v, n, (double)k + sh) * i[k];
-            ii += (double)i[k] * i[k];
-        }
-        p += pp;
-        i2 += ii;
-        if (ii > 0) {
-            sr += pp / ii;
-            sr2 += (pp / ii) * (pp / ii);
-            np++;
-        }
-    }
-    if (!(i2 > 0))
+    if (nsk < 1 || nsk > TF_POWER_MAX_SKEWS)
+        return tf_error_set(err, TF_ERR_USAGE, "power method: expected 1 to %d skews",
+                            TF_POWER_MAX_SKEWS);
+    shifted vs[TF_POWER_MAX_SKEWS];
+    for (size_t s = 0; s < nsk; s++)
+        vs[s] = shifted_make(v, n, skew_s[s] / dt_s);
+    double *sums = malloc((nb - 1) * (nsk + 1) * sizeof *sums);
+    if (!sums)
+        return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
+    power_job j = {v, i, n, vs, nsk, bounds, sums};
+    tf_fit_parallel_for(nb - 1, threads, power_one, &j);
+    /* totals in period order: the same figures for every thread count */
+    double i2 = 0;
+    for (size_t q = 0; q + 1 < nb; q++)
+        i2 += sums[q * (nsk + 1) + nsk];
+    if (!(i2 > 0)) {
+        free(sums);
         return tf_error_set(err, TF_ERR_DATA, "power method: no current");
-    *r_ohm = p / i2;
-    *u_ohm = NAN;
-    if (np >= 2) {
-        const double m = sr / (double)np, var = (sr2 - np * m * m) / (double)(np - 1);
-        *u_ohm = sqrt(var > 0 ? var : 0) / sqrt((double)np);
     }
+    for (size_t s = 0; s < nsk; s++) {
+        double p = 0, sr = 0, sr2 = 0;
+        size_t np = 0;
+        for (size_t q = 0; q + 1 < nb; q++) {
+            const double pp = sums[q * (nsk + 1) + s], ii = sums[q * (nsk + 1) + nsk];
+            p += pp;
+            if (ii > 0) {
+                sr += pp / ii;
+                sr2 += (pp / ii) * (pp / ii);
+                np++;
+            }
+        }
+        r_ohm[s] = p / i2;
+        u_ohm[s] = NAN;
+        if (np >= 2) {
+            const double m = sr / (double)np, var = (sr2 - np * m * m) / (double)(np - 1);
+            u_ohm[s] = sqrt(var > 0 ? var : 0) / sqrt((double)np);
+        }
+    }
+    free(sums);
     return TF_OK;
 }
