@@ -359,8 +359,8 @@ static void overlapping(int gates)
     assert_int_equal(m.attributed, m.truth);
     assert_true(m.max_err_s <= 0.5 * w.cap->dt_s);
     /* the split at the next firing: from the gate edge, or from the current alone by the
-     * two-piece residual (issue 4: turn-off time within 1 sample + 0.5 %) */
-    assert_true(m.max_fire_err_s <= 1.0 * w.cap->dt_s);
+     * two-piece residual: within 0.5 sample like every crossing (issue 4; measured 0.2) */
+    assert_true(m.max_fire_err_s <= 0.5 * w.cap->dt_s);
     check_turnoff(&w, r, 2e-6);
     for (size_t k = 0; k < r->ncycles; k++)
         if (isfinite(r->cycles[k].overlap_s))
@@ -933,15 +933,17 @@ static void sim_free(sim_case *c)
 
 /* Every simulated interval away from the record's edges that the capture can show (its
  * true peak at least two of the segmenter's bands, the scan's floor for a lobe:
- * docs/segmenter.md) is a lobe with the right device; zero crossings within 0.5 sample,
- * boundaries at firings within 1 sample; turn-off time available within 1 sample +
- * 0.5 % (issue 4). */
+ * docs/segmenter.md) is a lobe with the right device; every boundary within 0.5 sample,
+ * at a zero and at a firing inside a same-sign stretch alike (measured at firings on the
+ * overlapping half and full bridges at 9-11 kHz: 0.20-0.36 sample); turn-off time
+ * available within 1 sample + 0.5 % (issue 4). */
 static void sim_check(const sim_case *c, size_t min_count, int check_turnoff)
 {
     const double dt = c->cap->dt_s, end = (double)c->cap->n * dt;
     const tf_segment_result *r = c->r;
     json_t *iv = json_object_get(c->truth, "intervals");
-    size_t checked = 0, idx;
+    size_t checked = 0, idx, nfire = 0;
+    double worst[2] = {0, 0};
     json_t *v;
     json_array_foreach(iv, idx, v) {
         double t0 = json_real_value(json_object_get(v, "start_s"));
@@ -962,13 +964,19 @@ static void sim_check(const sim_case *c, size_t min_count, int check_turnoff)
         size_t li = (size_t)(l - r->lobes);
         int fs = li > 0 && r->lobes[li - 1].end_by_firing, fe = l->end_by_firing;
         double es = fabs(l->start_s - t0), ee = fabs(l->end_s - t1);
-        if (es > (fs ? 1.0 : 0.5) * dt || ee > (fe ? 1.0 : 0.5) * dt)
+        if (es > 0.5 * dt || ee > 0.5 * dt)
             fprintf(stderr, "%s at %.9f: start err %.3f, end err %.3f samples\n", dev, t0,
                     (l->start_s - t0) / dt, (l->end_s - t1) / dt);
-        assert_true(es <= (fs ? 1.0 : 0.5) * dt);
-        assert_true(ee <= (fe ? 1.0 : 0.5) * dt);
+        assert_true(es <= 0.5 * dt);
+        assert_true(ee <= 0.5 * dt);
+        worst[0] = fmax(worst[0], fmax(fs ? 0 : es, fe ? 0 : ee) / dt);
+        worst[1] = fmax(worst[1], fmax(fs ? es : 0, fe ? ee : 0) / dt);
+        nfire += fs + fe;
         checked++;
     }
+    if (getenv("SEG_ERR"))
+        fprintf(stderr, "sim: %zu lobes checked, largest error %.3f sample at zeros, %.3f at "
+                "%zu firing splits\n", checked, worst[0], worst[1], nfire);
     assert_true(checked >= min_count);
     if (!check_turnoff)
         return;
