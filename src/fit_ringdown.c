@@ -491,18 +491,110 @@ static int run_lm(gsl_multifit_nlinear_workspace *ws, model_ctx *m, double *par,
     return 0;
 }
 
+/* Sums over one stretch between crossings, in the basis u = (pr, pi, k pr, k pi) of
+ * P_k = z^k: the Jacobian's rows are fixed combinations of u there (see accumulate). */
+typedef struct stretch_sums {
+    double a[9];   /* pr^2, pr pi, pi^2, then times k, then times k^2 */
+    double ru[4];  /* r u */
+    double u[4];   /* u (offset term only) */
+    double r;      /* r (offset term only) */
+    double rss;
+    size_t count;
+} stretch_sums;
+
+/* Samples [k, kend) of a stretch with model constants e1, e2, c0: the sums of
+ * stretch_sums, recurrence inside blocks of RESYNC samples, exact at their starts.
+ * Named scalars: arrays of per-sample terms were spilled through the stack. */
+static void stretch_pass(const float *x, size_t k, size_t kend, double a, double wv, double zr,
+                         double zi, double e1, double e2, double c0, int full, stretch_sums *o)
+{
+    double s0 = 0, s1 = 0, s2 = 0, s3 = 0, s4 = 0, s5 = 0, s6 = 0, s7 = 0, s8 = 0;
+    double r0 = 0, r1 = 0, r2 = 0, r3 = 0, u0 = 0, u1 = 0, u2 = 0, u3 = 0, sr = 0, rss = 0;
+    o->count = kend - k;
+    while (k < kend) {
+        size_t kb = k + RESYNC - k % RESYNC;
+        if (kb > kend)
+            kb = kend;
+        const double e0 = exp(-a * (double)k);
+        double pr = e0 * cos(wv * (double)k), pi = e0 * sin(wv * (double)k);
+        if (full) {
+            for (; k < kb; k++) {
+                const double kd = (double)k, r = e1 * pr + e2 * pi + c0 - (double)x[k];
+                const double pp = pr * pr, pq = pr * pi, qq = pi * pi, rr = r * pr, ri = r * pi;
+                rss += r * r;
+                s0 += pp; s1 += pq; s2 += qq;
+                s3 += kd * pp; s4 += kd * pq; s5 += kd * qq;
+                s6 += kd * kd * pp; s7 += kd * kd * pq; s8 += kd * kd * qq;
+                r0 += rr; r1 += ri; r2 += kd * rr; r3 += kd * ri;
+                u0 += pr; u1 += pi; u2 += kd * pr; u3 += kd * pi;
+                sr += r;
+                const double t0 = pr * zr - pi * zi;
+                pi = pr * zi + pi * zr;
+                pr = t0;
+            }
+        } else {
+            for (; k < kb; k++) {
+                const double kd = (double)k, r = e1 * pr + e2 * pi - (double)x[k];
+                const double pp = pr * pr, pq = pr * pi, qq = pi * pi, rr = r * pr, ri = r * pi;
+                rss += r * r;
+                s0 += pp; s1 += pq; s2 += qq;
+                s3 += kd * pp; s4 += kd * pq; s5 += kd * qq;
+                s6 += kd * kd * pp; s7 += kd * kd * pq; s8 += kd * kd * qq;
+                r0 += rr; r1 += ri; r2 += kd * rr; r3 += kd * ri;
+                const double t0 = pr * zr - pi * zi;
+                pi = pr * zi + pi * zr;
+                pr = t0;
+            }
+        }
+    }
+    const double av[9] = {s0, s1, s2, s3, s4, s5, s6, s7, s8};
+    memcpy(o->a, av, sizeof av);
+    o->ru[0] = r0; o->ru[1] = r1; o->ru[2] = r2; o->ru[3] = r3;
+    o->u[0] = u0; o->u[1] = u1; o->u[2] = u2; o->u[3] = u3;
+    o->r = sr;
+    o->rss = rss;
+}
+
+/* Residuals only, no sums for H. */
+static double stretch_rss(const float *x, size_t k, size_t kend, double a, double wv, double zr,
+                          double zi, double e1, double e2, double c0)
+{
+    double rss = 0;
+    while (k < kend) {
+        size_t kb = k + RESYNC - k % RESYNC;
+        if (kb > kend)
+            kb = kend;
+        const double e0 = exp(-a * (double)k);
+        double pr = e0 * cos(wv * (double)k), pi = e0 * sin(wv * (double)k);
+        for (; k < kb; k++) {
+            const double r = e1 * pr + e2 * pi + c0 - (double)x[k];
+            rss += r * r;
+            const double t0 = pr * zr - pi * zi;
+            pi = pr * zi + pi * zr;
+            pr = t0;
+        }
+    }
+    return rss;
+}
+
 /* One pass over the samples: residual sum of squares and, when H is not NULL, the
  * normal equations H = J^T J, g = J^T r (p x p, row-major), without storing J. */
 static double accumulate(const double *p, const model_ctx *m, double *H, double *g)
 {
     const double a = p[0], wv = p[1], c1 = p[2], c2 = p[3], c0 = m->p == 5 ? p[4] : 0.0;
     const double ea = exp(-a), zr = ea * cos(wv), zi = ea * sin(wv);
+    const size_t P = m->p;
+    const int full = P == 5;
     double rss = 0;
-    double h[15] = {0}, gg[5] = {0};
-    const int full = m->p == 5;
+    if (H) {
+        memset(H, 0, P * P * sizeof *H);
+        memset(g, 0, P * sizeof *g);
+    }
     /* Between crossings the drop terms are P_k times constants (see walk): the model is
-     * e1 pr + e2 pi with e1 = c1 + Im Cs, e2 = c2 + Re Cs, and the Jacobian adds
-     * P_k Ct terms; so each stretch runs the plain loop with its own constants. */
+     * e1 pr + e2 pi with e1 = c1 + Im Cs, e2 = c2 + Re Cs, and the Jacobian's rows are
+     *   j0 = cti pr + ctr pi - e1 k pr - e2 k pi,  j1 = -ctr pr + cti pi + e2 k pr - e1 k pi,
+     *   j2 = pr, j3 = pi (, j4 = 1),
+     * i.e. T u with u = (pr, pi, k pr, k pi): H = T (sum u u^T) T^T, g = T sum r u. */
     double csr = 0, csi = 0, ctr = 0, cti = 0;
     size_t j = 0, k = 0;
     while (k < m->n) {
@@ -524,50 +616,48 @@ static double accumulate(const double *p, const model_ctx *m, double *H, double 
         if (kend <= k)
             kend = k + 1;
         const double e1 = c1 + csi, e2 = c2 + csr;
-        for (; k < kend;) {
-            /* exact start of each block of RESYNC samples, recurrence inside */
-            size_t kb = k + RESYNC - k % RESYNC;
-            if (kb > kend)
-                kb = kend;
-            const double e0 = exp(-a * (double)k);
-            double pr = e0 * cos(wv * (double)k), pi = e0 * sin(wv * (double)k);
-            for (; k < kb; k++) {
-                const double kd = (double)k;
-                const double base = e1 * pr + e2 * pi;
-                const double r = base + c0 - (double)m->x[k];
-                rss += r * r;
-                if (H) {
-                    const double j0 = -kd * base + cti * pr + ctr * pi;
-                    const double j1 = kd * (e2 * pr - e1 * pi) - ctr * pr + cti * pi;
-                    const double j2 = pr, j3 = pi;
-                    h[0] += j0 * j0; h[1] += j0 * j1; h[2] += j0 * j2; h[3] += j0 * j3;
-                    h[4] += j1 * j1; h[5] += j1 * j2; h[6] += j1 * j3;
-                    h[7] += j2 * j2; h[8] += j2 * j3; h[9] += j3 * j3;
-                    gg[0] += j0 * r; gg[1] += j1 * r; gg[2] += j2 * r; gg[3] += j3 * r;
-                    if (full) {
-                        h[10] += j0; h[11] += j1; h[12] += j2; h[13] += j3; h[14] += 1.0;
-                        gg[4] += r;
-                    }
-                }
-                const double t0 = pr * zr - pi * zi;
-                pi = pr * zi + pi * zr;
-                pr = t0;
-            }
+        if (!H) {
+            rss += stretch_rss(m->x, k, kend, a, wv, zr, zi, e1, e2, c0);
+            k = kend;
+            continue;
         }
-    }
-    if (H) {
-        const size_t P = m->p;
-        const int idx[4][4] = {{0, 1, 2, 3}, {1, 4, 5, 6}, {2, 5, 7, 8}, {3, 6, 8, 9}};
-        for (size_t r = 0; r < 4; r++)
-            for (size_t c = 0; c < 4; c++)
-                H[r * P + c] = h[idx[r][c]];
+        stretch_sums ss;
+        stretch_pass(m->x, k, kend, a, wv, zr, zi, e1, e2, c0, full, &ss);
+        k = kend;
+        rss += ss.rss;
+        const double *A = ss.a;
+        const double Gu[4][4] = {{A[0], A[1], A[3], A[4]},
+                                 {A[1], A[2], A[4], A[5]},
+                                 {A[3], A[4], A[6], A[7]},
+                                 {A[4], A[5], A[7], A[8]}};
+        const double T[4][4] = {{cti, ctr, -e1, -e2},
+                                {-ctr, cti, e2, -e1},
+                                {1, 0, 0, 0},
+                                {0, 1, 0, 0}};
+        double TG[4][4];
+        for (int r = 0; r < 4; r++)
+            for (int c = 0; c < 4; c++)
+                TG[r][c] = T[r][0] * Gu[0][c] + T[r][1] * Gu[1][c] + T[r][2] * Gu[2][c] +
+                           T[r][3] * Gu[3][c];
+        for (int r = 0; r < 4; r++) {
+            for (int c = r; c < 4; c++)
+                H[r * P + c] += TG[r][0] * T[c][0] + TG[r][1] * T[c][1] + TG[r][2] * T[c][2] +
+                                TG[r][3] * T[c][3];
+            g[r] += T[r][0] * ss.ru[0] + T[r][1] * ss.ru[1] + T[r][2] * ss.ru[2] +
+                    T[r][3] * ss.ru[3];
+        }
         if (full) {
-            for (size_t c = 0; c < 5; c++)
-                H[4 * P + c] = H[c * P + 4] = h[10 + c];
+            for (int r = 0; r < 4; r++)
+                H[r * P + 4] += T[r][0] * ss.u[0] + T[r][1] * ss.u[1] + T[r][2] * ss.u[2] +
+                                T[r][3] * ss.u[3];
+            H[4 * P + 4] += (double)ss.count;
+            g[4] += ss.r;
         }
-        for (size_t c = 0; c < P; c++)
-            g[c] = gg[c];
     }
+    if (H)
+        for (size_t r = 0; r < P; r++)
+            for (size_t c = 0; c < r; c++)
+                H[r * P + c] = H[c * P + r];
     return rss;
 }
 
