@@ -10,6 +10,8 @@
 #include <string.h>
 #include <unistd.h>
 
+#include <gsl/gsl_statistics_double.h>
+
 /* What tf_fit_result.detail points at. */
 typedef struct fit_detail {
     tf_fit_burst *bursts;
@@ -100,8 +102,11 @@ static void fit_one_burst(const job_ctx *c, tf_dsfit_workspace *ws, size_t k, co
     b->end_s = sb->end_s;
     size_t i0 = sb->i0, i1 = sb->i1 > c->n ? c->n : sb->i1;
     double peak = 0;
-    for (size_t q = i0; q < i1; q++)
-        peak = fmax(peak, fabs(c->x[q]));
+    for (size_t q = i0; q < i1; q++) {
+        const double a = fabs(c->x[q]);
+        if (a > peak)   /* fmax is a library call here; NAN samples are skipped alike */
+            peak = a;
+    }
     b->peak_a = peak;
     if (sb->clipped) {
         b->status = TF_FITB_CLIPPED;
@@ -257,18 +262,10 @@ static int run_jobs(job_ctx *c, size_t njobs, size_t items, int threads)
 
 /* ---- statistics across bursts ------------------------------------------------------ */
 
-static int cmp_double(const void *a, const void *b)
-{
-    double x = *(const double *)a, y = *(const double *)b;
-    return (x > y) - (x < y);
-}
-
 double tf_fit_median(double *x, size_t n)
 {
-    if (!n)
-        return NANV;
-    qsort(x, n, sizeof *x, cmp_double);
-    return n % 2 ? x[n / 2] : 0.5 * (x[n / 2 - 1] + x[n / 2]);
+    /* GSL's selection (no full sort); the mean of the middle two for even n */
+    return n ? gsl_stats_median(x, 1, n) : NANV;
 }
 
 void tf_fit_spread_of(const double *x, size_t n, size_t stride, double *scratch,
@@ -282,8 +279,10 @@ void tf_fit_spread_of(const double *x, size_t n, size_t stride, double *scratch,
         if (!isfinite(v))
             continue;
         scratch[m++] = v;
-        out->min = fmin(out->min, v);
-        out->max = fmax(out->max, v);
+        if (v < out->min) /* finite v: as fmin, fmax */
+            out->min = v;
+        if (v > out->max)
+            out->max = v;
     }
     out->count = m;
     if (!m) {
