@@ -2,7 +2,8 @@
  * drops, current i_load, voltage v_out): wall and CPU time of tf_fit_run on 1 and 2
  * threads, best of REPS, and the "resonance" JSON of each run compared byte for byte
  * (the figures must not depend on the thread count). Not run by ctest.
- * Usage: bench_fit_check CAPTURE DESIGN.ini [REPS] [JSON_OUT] */
+ * With ROLES "guess" the channel roles are guessed (as analyze does without options).
+ * Usage: bench_fit_check CAPTURE DESIGN.ini [REPS] [JSON_OUT] [ROLES] */
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -41,9 +42,11 @@ int main(int argc, char **argv)
     tf_capture_compute_stats(cap);
     tf_analysis_options o;
     tf_analysis_options_init(&o, &d);
-    o.roles.current = "i_load";
-    o.roles.voltage = "v_out";
-    o.roles.cap_voltage = "v_cap";
+    if (!(argc > 5 && strcmp(argv[5], "guess") == 0)) {
+        o.roles.current = "i_load";
+        o.roles.voltage = "v_out";
+        o.roles.cap_voltage = "v_cap";
+    }
     tf_roles roles;
     tf_segment_result *seg = NULL;
     if (tf_roles_resolve(cap, &o.roles, &d, &roles, &err) != TF_OK ||
@@ -72,7 +75,7 @@ int main(int argc, char **argv)
             json_decref(j);
             if (!first) {
                 first = s;
-                if (argc > 4) {
+                if (argc > 4 && strcmp(argv[4], "-") != 0) {
                     FILE *f = fopen(argv[4], "w");
                     if (f) {
                         fputs(s, f);
