@@ -6,6 +6,8 @@
 #include "spectrum_internal.h"
 
 #include <float.h>
+#include <limits.h>
+#include <stdatomic.h>
 #include <stdint.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -132,57 +134,179 @@ static inline size_t stencil(double pos, size_t n, double wt[4])
     return (size_t)k;
 }
 
-/* One share of the fold pass: periods [m0, m1) into its own sums. */
-typedef struct fold_job {
-    const float *x[MAX_CH];
-    double pos0[MAX_CH];
-    int nw, iv, ii;
-    size_t n, m0, m1, S;
-    double step;
-    double *fold[MAX_CH];
-    double sumsq[MAX_CH], vi;
-} fold_job;
+/* ---- the pass over the samples -------------------------------------------------------
+ * Everything that reads the whole window is one pass, cut into tasks fixed by the
+ * geometry alone, never by the thread count: fold blocks (periods [m0, m1) of every
+ * channel folded into the block's own sums, with its sums of squares and of v i and the
+ * raw peaks of its share of the samples) and runs of firing cycles (their energies).
+ * Threads take tasks in any order, each task writes only its own slots, and the slots
+ * are combined in task order: one thread or eight give the same bits. */
 
-/* Resample every channel on the grid t_a + j tau (j in the job's periods),
- * folding the values into one period; also the sums of squares and of v * i.
- * Channels read without a shift share one stencil per point. */
-static void *fold_run(void *arg)
+#define TILE 128            /* grid points whose stencils are made in one go */
+#define MAX_BLOCKS 16       /* fold blocks; fewer for short windows (BLOCK_POINTS) */
+#define BLOCK_POINTS ((size_t)1 << 18)
+#define BLOCK_BYTES ((size_t)32 << 20) /* bound on the blocks' own fold sums */
+#define MAX_RUNS 16         /* runs of firing cycles */
+
+typedef struct pass {
+    int nw, ng, grp[MAX_CH], iv, ii;
+    const float *x[MAX_CH];
+    double gpos[MAX_CH];    /* window start of each stencil group: channels read
+                             * without a shift share one stencil per point */
+    size_t n, S, M, nblocks;
+    double step;
+    double *fold[MAX_BLOCKS][MAX_CH];
+    double sumsq[MAX_BLOCKS][MAX_CH], vi[MAX_BLOCKS], peak[MAX_BLOCKS][MAX_CH];
+    long raw_a[MAX_CH], raw_len[MAX_CH]; /* raw samples inside the window */
+    /* energy per firing cycle: v read at k + sk against i[k] */
+    const tf_cycle *cycles;
+    size_t ncycles, nruns;
+    const float *ev, *ei;
+    double sk, t0, dt;
+    double *energy;         /* one per cycle; NAN when the cycle is not integrated */
+    size_t ntasks;
+    atomic_size_t next;
+} pass;
+
+/* Stencils of L <= TILE consecutive grid points p0 + j step, j in [j0, j0 + L): the
+ * arithmetic of stencil(), without its clamps when no point needs them, in loops the
+ * compiler vectorises (the divisions by 6 cost most of the fold). */
+typedef struct tile {
+    size_t k[TILE];
+    double w[4][TILE];
+} tile;
+
+static void tile_stencils(double p0, double step, size_t j0, size_t L, size_t n, tile *t)
 {
-    fold_job *J = arg;
-    int grp[MAX_CH], ng = 0;
-    double gpos[MAX_CH], val[MAX_CH];
-    for (int c = 0; c < J->nw; c++) {
-        int g = 0;
-        while (g < ng && gpos[g] != J->pos0[c])
-            g++;
-        if (g == ng)
-            gpos[ng++] = J->pos0[c];
-        grp[c] = g;
-    }
-    const size_t n = J->n, S = J->S;
-    for (size_t m = J->m0; m < J->m1; m++) {
-        double sq[MAX_CH] = {0}, pvi = 0.0;
-        const size_t j0 = m * S;
-        for (size_t s = 0; s < S; s++) {
-            const double dj = (double)(j0 + s) * J->step;
-            double wt[MAX_CH][4];
-            size_t k[MAX_CH];
-            for (int g = 0; g < ng; g++)
-                k[g] = stencil(gpos[g] + dj, n, wt[g]);
-            for (int c = 0; c < J->nw; c++) {
-                const float *p = J->x[c] + k[grp[c]];
-                const double *q = wt[grp[c]];
-                const double v = q[0] * p[0] + q[1] * p[1] + q[2] * p[2] + q[3] * p[3];
-                val[c] = v;
-                J->fold[c][s] += v;
-                sq[c] += v * v;
-            }
-            if (J->iv >= 0)
-                pvi += val[J->iv] * val[J->ii];
+    const double jd = (double)j0; /* (double)j0 + q is exact: both below 2^53 */
+    const double first = p0 + jd * step, last = p0 + (jd + (double)(L - 1)) * step;
+    if (first >= 1.0 && last <= (double)n - 3.0 && n < (size_t)INT_MAX) {
+        int ki[TILE];
+        for (int q = 0; q < (int)L; q++) {
+            const double pos = p0 + (jd + (double)q) * step;
+            const int k = (int)(pos + 1.0) - 2;
+            const double u = pos - (double)k;
+            const double a = u - 1.0, b = u - 2.0, c = u - 3.0;
+            ki[q] = k;
+            t->w[0][q] = -(a * b * c / 6.0);
+            t->w[1][q] = u * b * c * 0.5;
+            t->w[2][q] = -(u * a * c * 0.5);
+            t->w[3][q] = u * a * b / 6.0;
         }
-        for (int c = 0; c < J->nw; c++)
-            J->sumsq[c] += sq[c];
-        J->vi += pvi;
+        for (size_t q = 0; q < L; q++)
+            t->k[q] = (size_t)ki[q];
+        return;
+    }
+    for (size_t q = 0; q < L; q++) {
+        double wt[4];
+        t->k[q] = stencil(p0 + (jd + (double)q) * step, n, wt);
+        for (int i = 0; i < 4; i++)
+            t->w[i][q] = wt[i];
+    }
+}
+
+/* Fold block b: resample every channel on the grid of its periods and add the values
+ * into one period; sums of squares and of v i period by period. */
+static void fold_block(pass *P, size_t b)
+{
+    const size_t S = P->S, m0 = P->M * b / P->nblocks, m1 = P->M * (b + 1) / P->nblocks;
+    tile t[MAX_CH];
+    double sumsq[MAX_CH] = {0}, vi = 0.0, val[MAX_CH];
+    for (size_t m = m0; m < m1; m++) {
+        double sq[MAX_CH] = {0}, pvi = 0.0;
+        for (size_t s0 = 0; s0 < S; s0 += TILE) {
+            const size_t L = S - s0 < TILE ? S - s0 : TILE;
+            for (int g = 0; g < P->ng; g++)
+                tile_stencils(P->gpos[g], P->step, m * S + s0, L, P->n, &t[g]);
+            for (size_t q = 0; q < L; q++) {
+                for (int c = 0; c < P->nw; c++) {
+                    const tile *tg = &t[P->grp[c]];
+                    const float *p = P->x[c] + tg->k[q];
+                    const double v = tg->w[0][q] * p[0] + tg->w[1][q] * p[1] +
+                                     tg->w[2][q] * p[2] + tg->w[3][q] * p[3];
+                    val[c] = v;
+                    P->fold[b][c][s0 + q] += v;
+                    sq[c] += v * v;
+                }
+                if (P->iv >= 0)
+                    pvi += val[P->iv] * val[P->ii];
+            }
+        }
+        for (int c = 0; c < P->nw; c++)
+            sumsq[c] += sq[c];
+        vi += pvi;
+    }
+    for (int c = 0; c < P->nw; c++) {
+        P->sumsq[b][c] = sumsq[c];
+        /* the block's share of the raw samples (a maximum does not depend on the split) */
+        const long k0 = P->raw_a[c] + (long)((size_t)P->raw_len[c] * b / P->nblocks);
+        const long k1 = P->raw_a[c] + (long)((size_t)P->raw_len[c] * (b + 1) / P->nblocks);
+        double pk = 0.0;
+        for (long k = k0; k < k1; k++)
+            if (fabs(P->x[c][k]) > pk)
+                pk = fabs(P->x[c][k]);
+        P->peak[b][c] = pk;
+    }
+    P->vi[b] = vi;
+}
+
+/* Sum of i[k] v(k + sk) over [ka, kb): the fractional shift is the same for every k,
+ * so are the cubic weights (those of tf_sp_interp at u = 1 + frac(sk)); within a
+ * sample of either end of the record tf_sp_interp itself. */
+static double cycle_sum(const pass *P, long ka, long kb)
+{
+    const double fl = floor(P->sk);
+    const long o = (long)fl - 1, n = (long)P->n;
+    const double u = 1.0 + (P->sk - fl);
+    const double a = u - 1.0, b = u - 2.0, c = u - 3.0;
+    const double w0 = -(a * b * c / 6.0), w1 = u * b * c * 0.5, w2 = -(u * a * c * 0.5),
+                 w3 = u * a * b / 6.0;
+    long lo = ka > -o ? ka : -o, hi = kb < n - 3 - o ? kb : n - 3 - o;
+    if (hi < lo)
+        lo = hi = kb;
+    const float *v = P->ev, *i = P->ei;
+    double s = 0.0;
+    for (long k = ka; k < lo; k++)
+        s += (double)i[k] * tf_sp_interp(v, P->n, (double)k + P->sk);
+    for (long k = lo; k < hi; k++) {
+        const float *p = v + k + o;
+        s += (double)i[k] * (w0 * p[0] + w1 * p[1] + w2 * p[2] + w3 * p[3]);
+    }
+    for (long k = hi; k < kb; k++)
+        s += (double)i[k] * tf_sp_interp(v, P->n, (double)k + P->sk);
+    return s;
+}
+
+/* Run r of the firing cycles: the integral of v(t + skew) i(t) over each complete
+ * cycle, on the current's sample grid (rectangle rule; the ends are rounded to whole
+ * samples). Cycles reaching outside the record are left out (NAN). */
+static void energy_run(pass *P, size_t r)
+{
+    const size_t c0 = P->ncycles * r / P->nruns, c1 = P->ncycles * (r + 1) / P->nruns;
+    const double dt = P->dt, lastpos = (double)(P->n - 1), sk = P->sk;
+    for (size_t c = c0; c < c1; c++) {
+        const tf_cycle *cy = &P->cycles[c];
+        P->energy[c] = NAN;
+        if (!isfinite(cy->period_s) || !(cy->period_s > 0.0) || !isfinite(cy->start_s))
+            continue;
+        const double a = (cy->start_s - P->t0) / dt, b = a + cy->period_s / dt;
+        if (a + sk < 0.0 || a < 0.0 || b > lastpos || b + sk > lastpos)
+            continue;
+        P->energy[c] = cycle_sum(P, lround(a), lround(b)) * dt;
+    }
+}
+
+static void *pass_worker(void *arg)
+{
+    pass *P = arg;
+    for (;;) {
+        const size_t t = atomic_fetch_add(&P->next, 1);
+        if (t >= P->ntasks)
+            break;
+        if (t < P->nblocks)
+            fold_block(P, t);
+        else
+            energy_run(P, t - P->nblocks);
     }
     return NULL;
 }
@@ -197,75 +321,109 @@ static int thread_count(int requested, size_t points)
     return cores >= 2 ? 2 : 1;
 }
 
-/* The fold pass over all M periods, split between threads by periods (each
- * share folds into its own buffer; the shares are added in a fixed order, so
- * a given thread count always gives the same result). Returns the sum of
- * v * i, or NAN when out of memory. */
-static double fold_pass(const tf_capture *cap, work *w, int nw, size_t M, size_t S,
-                        double step, int iv, int ii, int threads)
+/* Fold blocks for M periods of S points of nw channels: about BLOCK_POINTS points
+ * each, at most MAX_BLOCKS, and their own sums within BLOCK_BYTES. */
+static size_t block_count(size_t M, size_t S, int nw)
 {
-    int T = thread_count(threads, M * S);
-    if ((size_t)T > M)
-        T = (int)M;
-    fold_job jobs[MAX_THREADS];
-    pthread_t tid[MAX_THREADS];
-    int started[MAX_THREADS] = {0};
-    memset(jobs, 0, sizeof jobs);
-    int ok = 1;
-    for (int t = 0; t < T; t++) {
-        fold_job *J = &jobs[t];
-        J->nw = nw;
-        J->iv = iv;
-        J->ii = ii;
-        J->n = cap->n;
-        J->S = S;
-        J->step = step;
-        J->m0 = M * (size_t)t / (size_t)T;
-        J->m1 = M * (size_t)(t + 1) / (size_t)T;
-        for (int c = 0; c < nw; c++) {
-            J->x[c] = w[c].x;
-            J->pos0[c] = w[c].pos0;
-            J->fold[c] = t == 0 ? w[c].fold : calloc(S, sizeof(double));
-            ok = ok && J->fold[c];
-        }
-    }
-    for (int t = 1; ok && t < T; t++)
-        started[t] = pthread_create(&tid[t], NULL, fold_run, &jobs[t]) == 0;
-    if (ok)
-        fold_run(&jobs[0]);
-    for (int t = 1; ok && t < T; t++) {
-        if (started[t])
-            pthread_join(tid[t], NULL);
-        else
-            fold_run(&jobs[t]); /* no thread: do its share here */
-    }
-    double vi = 0.0;
-    for (int t = 0; t < T; t++) {
-        for (int c = 0; c < nw; c++) {
-            if (t > 0 && ok)
-                for (size_t s = 0; s < S; s++)
-                    w[c].fold[s] += jobs[t].fold[c][s];
-            w[c].sumsq += jobs[t].sumsq[c];
-            if (t > 0)
-                free(jobs[t].fold[c]);
-        }
-        vi += jobs[t].vi;
-    }
-    return ok ? vi : NAN;
+    size_t nb = M * S / BLOCK_POINTS;
+    if (nb > MAX_BLOCKS)
+        nb = MAX_BLOCKS;
+    if (nb > M)
+        nb = M;
+    const size_t per = (size_t)nw * S * sizeof(double);
+    if (nb > 1 + BLOCK_BYTES / per)
+        nb = 1 + BLOCK_BYTES / per;
+    return nb < 1 ? 1 : nb;
 }
 
-static void raw_peak(const tf_capture *cap, work *w, double last_pos)
+/* The pass: fills every channel's fold, sum of squares and raw peak, returns the sum of
+ * v i over the window (iv < 0: none) and, with cycles, their energies in *energy
+ * (malloc'd, one per cycle, NAN where left out). Returns NAN when out of memory. */
+static double run_pass(const tf_capture *cap, work *w, int nw, size_t M, size_t S,
+                       double step, int iv, int ii, const tf_segment_result *seg, double sk,
+                       int threads, double **energy)
 {
-    long a = (long)ceil(w->pos0), b = (long)floor(last_pos);
-    if (a < 0)
-        a = 0;
-    if (b > (long)cap->n - 1)
-        b = (long)cap->n - 1;
-    double pk = 0.0;
-    for (long k = a; k <= b; k++)
-        if (fabs(w->x[k]) > pk)
-            pk = fabs(w->x[k]);
-    w->peak = pk;
+    pass *P = calloc(1, sizeof *P);
+    if (!P)
+        return NAN;
+    P->nw = nw;
+    P->iv = iv;
+    P->ii = ii;
+    P->n = cap->n;
+    P->S = S;
+    P->M = M;
+    P->step = step;
+    P->nblocks = block_count(M, S, nw);
+    for (int c = 0; c < nw; c++) {
+        int g = 0;
+        while (g < P->ng && P->gpos[g] != w[c].pos0)
+            g++;
+        if (g == P->ng)
+            P->gpos[P->ng++] = w[c].pos0;
+        P->grp[c] = g;
+        P->x[c] = w[c].x;
+        long a = (long)ceil(w[c].pos0), b = (long)floor(w[c].pos0 + (double)(M * S - 1) * step);
+        if (a < 0)
+            a = 0;
+        if (b > (long)cap->n - 1)
+            b = (long)cap->n - 1;
+        P->raw_a[c] = a;
+        P->raw_len[c] = b >= a ? b - a + 1 : 0;
+    }
+    double *own = calloc((P->nblocks - 1) * (size_t)nw * S + 1, sizeof(double));
+    *energy = NULL;
+    if (iv >= 0 && seg && seg->ncycles > 0) {
+        P->cycles = seg->cycles;
+        P->ncycles = seg->ncycles;
+        P->nruns = seg->ncycles < MAX_RUNS ? seg->ncycles : MAX_RUNS;
+        P->ev = w[iv].x;
+        P->ei = w[ii].x;
+        P->sk = sk / cap->dt_s;
+        P->t0 = cap->t0_s;
+        P->dt = cap->dt_s;
+        *energy = P->energy = malloc(seg->ncycles * sizeof(double));
+    }
+    if (!own || (P->ncycles && !P->energy)) {
+        free(own);
+        free(*energy);
+        *energy = NULL;
+        free(P);
+        return NAN;
+    }
+    for (size_t b = 0; b < P->nblocks; b++)
+        for (int c = 0; c < nw; c++)
+            P->fold[b][c] = b == 0 ? w[c].fold : own + ((b - 1) * (size_t)nw + (size_t)c) * S;
+    P->ntasks = P->nblocks + P->nruns;
+    atomic_init(&P->next, 0);
+    int T = thread_count(threads, M * S);
+    if ((size_t)T > P->ntasks)
+        T = (int)P->ntasks;
+    pthread_t tid[MAX_THREADS];
+    int started = 0;
+    while (started < T - 1 && pthread_create(&tid[started], NULL, pass_worker, P) == 0)
+        started++;
+    pass_worker(P);
+    for (int t = 0; t < started; t++)
+        pthread_join(tid[t], NULL);
+    double vi = 0.0;
+    for (int c = 0; c < nw; c++) {
+        w[c].sumsq = 0.0;
+        w[c].peak = 0.0;
+    }
+    for (size_t b = 0; b < P->nblocks; b++) {
+        for (int c = 0; c < nw; c++) {
+            if (b > 0)
+                for (size_t s = 0; s < S; s++)
+                    w[c].fold[s] += P->fold[b][c][s];
+            w[c].sumsq += P->sumsq[b][c];
+            if (P->peak[b][c] > w[c].peak)
+                w[c].peak = P->peak[b][c];
+        }
+        vi += P->vi[b];
+    }
+    free(own);
+    free(P);
+    return vi;
 }
 
 /* Synchronous phasors: FFT of the folded period; exactly bins M h of the
@@ -365,35 +523,15 @@ static tf_status hann_phasors(const tf_capture *cap, work *w, double t_a, size_t
     return TF_OK;
 }
 
-/* Integral of v(t + skew) i(t) over each complete firing cycle, on the current's
- * sample grid (rectangle rule; the ends are rounded to whole samples). */
-static void cycle_energies(const tf_capture *cap, const tf_segment_result *seg, int iv, int ii,
-                           double skew, tf_power *pw)
+/* Minimum, median and maximum of the energies of the cycles integrated by the pass. */
+static void cycle_energies(double *e, size_t ncycles, tf_power *pw)
 {
     pw->cycle_energy_min_j = pw->cycle_energy_median_j = pw->cycle_energy_max_j = NAN;
     pw->cycles = 0;
-    if (!seg || seg->ncycles == 0)
-        return;
-    double *e = malloc(sizeof(double) * seg->ncycles);
-    if (!e)
-        return;
-    const double dt = cap->dt_s, lastpos = (double)(cap->n - 1);
-    const float *v = cap->ch[iv].samples, *i = cap->ch[ii].samples;
     size_t ne = 0;
-    for (size_t c = 0; c < seg->ncycles; c++) {
-        const tf_cycle *cy = &seg->cycles[c];
-        if (!isfinite(cy->period_s) || !(cy->period_s > 0.0) || !isfinite(cy->start_s))
-            continue;
-        const double a = (cy->start_s - cap->t0_s) / dt, b = a + cy->period_s / dt;
-        const double sk = skew / dt;
-        if (a + sk < 0.0 || a < 0.0 || b > lastpos || b + sk > lastpos)
-            continue;
-        const long ka = lround(a), kb = lround(b);
-        double s = 0.0;
-        for (long k = ka; k < kb; k++)
-            s += (double)i[k] * tf_sp_interp(v, cap->n, (double)k + sk);
-        e[ne++] = s * dt;
-    }
+    for (size_t c = 0; e && c < ncycles; c++)
+        if (!isnan(e[c]))
+            e[ne++] = e[c];
     if (ne > 0) {
         qsort(e, ne, sizeof *e, cmp_double);
         pw->cycle_energy_min_j = e[0];
@@ -401,7 +539,6 @@ static void cycle_energies(const tf_capture *cap, const tf_segment_result *seg, 
         pw->cycle_energy_median_j = ne % 2 ? e[ne / 2] : 0.5 * (e[ne / 2 - 1] + e[ne / 2]);
         pw->cycles = ne;
     }
-    free(e);
 }
 
 static tf_status check_inputs(const tf_capture *cap, const tf_roles *roles,
@@ -619,24 +756,29 @@ static tf_status analyse(const tf_capture *cap, const tf_segment_result *seg,
             return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
     }
     const int power = iv >= 0 && ii >= 0;
-    const double vi = fold_pass(cap, w, nw, g.M, g.S, g.step, power ? iv : -1, ii, opt->threads);
+    double *energy = NULL;
+    const double vi = run_pass(cap, w, nw, g.M, g.S, g.step, power ? iv : -1, ii, seg,
+                               opt->skew_s, opt->threads, &energy);
     if (isnan(vi))
         return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
     double dc[MAX_CH], msq[MAX_CH];
     for (int c = 0; c < nw && st == TF_OK; c++) {
-        raw_peak(cap, &w[c], w[c].pos0 + (double)(N - 1) * g.step);
         st = sync_phasors(&w[c], g.M, g.S, H, f, &dc[c], &msq[c], err);
         if (st == TF_OK && r->window) {
             st = hann_phasors(cap, &w[c], g.t_a, (size_t)floor((double)N * g.step) + 1, H, f,
                               &r->transform_length, err);
         }
     }
-    if (st != TF_OK)
+    if (st == TF_OK) {
+        r->ch = calloc((size_t)nw, sizeof *r->ch);
+        if (!r->ch)
+            st = tf_error_set(err, TF_ERR_NOMEM, "out of memory");
+    }
+    if (st != TF_OK) {
+        free(energy);
         return st;
+    }
     r->reference_channel = w[ref].idx;
-    r->ch = calloc((size_t)nw, sizeof *r->ch);
-    if (!r->ch)
-        return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
     r->nch = (size_t)nw;
     for (int c = 0; c < nw && st == TF_OK; c++)
         st = fill_channel(cap, &w[c], &w[ref], H, dc[c], sqrt(w[c].sumsq / (double)N), msq[c],
@@ -646,8 +788,9 @@ static tf_status analyse(const tf_capture *cap, const tf_segment_result *seg,
                         sqrt(w[ii].sumsq / (double)N), dc[iv], dc[ii], opt->skew_s, &r->power,
                         err);
         if (st == TF_OK)
-            cycle_energies(cap, seg, w[iv].idx, w[ii].idx, opt->skew_s, &r->power);
+            cycle_energies(energy, seg ? seg->ncycles : 0, &r->power);
     }
+    free(energy);
     return st;
 }
 

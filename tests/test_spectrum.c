@@ -790,32 +790,133 @@ static void test_spectrum_simulator_skew(void **state)
 
 /* ---- threads ------------------------------------------------------------------------ */
 
+/* Every figure of two results, bit for bit. */
+static void assert_same_bits(const tf_spectrum_result *a, const tf_spectrum_result *b)
+{
+    assert_int_equal(a->nch, b->nch);
+    assert_int_equal(a->periods, b->periods);
+    for (size_t c = 0; c < a->nch; c++) {
+        const tf_channel_spectrum *x = &a->ch[c], *y = &b->ch[c];
+        assert_int_equal(x->nharm, y->nharm);
+        assert_memory_equal(x->harm, y->harm, x->nharm * sizeof *x->harm);
+        const double fx[] = {x->dc, x->rms, x->peak, x->thd, x->aperiodic_rms};
+        const double fy[] = {y->dc, y->rms, y->peak, y->thd, y->aperiodic_rms};
+        assert_memory_equal(fx, fy, sizeof fx);
+    }
+    const tf_power *p = &a->power, *q = &b->power;
+    const double fp[] = {p->mean_w, p->v_rms, p->i_rms, p->power_factor, p->cycle_energy_min_j,
+                         p->cycle_energy_median_j, p->cycle_energy_max_j};
+    const double fq[] = {q->mean_w, q->v_rms, q->i_rms, q->power_factor, q->cycle_energy_min_j,
+                         q->cycle_energy_median_j, q->cycle_energy_max_j};
+    assert_memory_equal(fp, fq, sizeof fp);
+    assert_int_equal(p->cycles, q->cycles);
+    assert_memory_equal(p->harm, q->harm, p->nharm * sizeof *p->harm);
+}
+
 static void test_spectrum_threads_agree(void **state)
 {
     (void)state;
-    /* 640 periods of 6 kHz at 10 MS/s: over 2^20 resampled points, so the fold
-     * pass is split between threads; the split only reorders sums */
-    tf_capture *cap = two_channel_capture(6e3, 9, 640, 0.0);
+    /* 640 periods of 6 kHz at 10 MS/s: over 2^20 resampled points, so the pass is
+     * split into blocks and between threads; the blocks do not depend on the thread
+     * count, so every count gives the same bits (tankfit verify demands it) */
+    const double f = 6e3;
+    tf_capture *cap = two_channel_capture(f, 9, 640, 0.0);
+    tf_roles roles = roles_of(0, 1, -1);
+    tf_cycle cycles[600];
+    memset(cycles, 0, sizeof cycles);
+    for (int k = 0; k < 600; k++) {
+        cycles[k].start_s = cap->t0_s + 4e-6 + k / f;
+        cycles[k].period_s = 1.0 / f;
+    }
+    tf_segment_result seg;
+    memset(&seg, 0, sizeof seg);
+    seg.cycles = cycles;
+    seg.ncycles = 600;
+    tf_spectrum_options o;
+    tf_spectrum_options_init(&o);
+    o.fundamental_hz = f;
+    o.skew_s = 20e-9;
+    o.threads = 1;
+    tf_spectrum_result *a = run(cap, &roles, &seg, &o);
+    assert_true(a->periods * a->samples_per_period >= ((size_t)1 << 20));
+    assert_int_equal(a->power.cycles, 600);
+    const int counts[] = {2, 3, 8, 0};
+    for (size_t t = 0; t < sizeof counts / sizeof counts[0]; t++) {
+        o.threads = counts[t];
+        tf_spectrum_result *b = run(cap, &roles, &seg, &o);
+        assert_same_bits(a, b);
+        tf_spectrum_free(b);
+    }
+    harmonic_signal v = test_voltage(f, 9);
+    assert_true(tf_test_reldiff(a->ch[1].harm[0].amplitude, v.amp[1]) < 1e-6);
+    tf_spectrum_free(a);
+    tf_capture_destroy(cap);
+}
+
+/* Energy per firing cycle with a probe skew of a fraction of a sample, either sign:
+ * cycles of exactly 1600 samples (6.25 kHz at 10 MS/s), one starting a sample into the
+ * record and one ending at its last usable sample, where the interpolation stencil
+ * reaches the ends of the record. */
+static void check_cycle_energies(double skew)
+{
+    const double f = 6250.0, dt = 1e-7;
+    const size_t n = 40000;
+    harmonic_signal v = {.f = f, .dc = 4.0, .H = 5}, i = {.f = f, .dc = 0.5, .H = 5};
+    v.amp[1] = 320.0; v.ph[1] = 0.2;
+    v.amp[3] = 90.0;  v.ph[3] = 1.1;
+    v.amp[5] = 30.0;  v.ph[5] = -0.4;
+    i.amp[1] = 150.0; i.ph[1] = 0.2 - 76.0 * M_PI / 180.0;
+    i.amp[3] = 20.0;  i.ph[3] = 0.3;
+    i.amp[5] = 4.0;   i.ph[5] = 2.0;
+    tf_capture *cap = new_capture(2, n, dt, 0.0);
+    fill_signal(cap, 0, &i, 0.0, "i_load", "A");
+    fill_signal(cap, 1, &v, skew, "v_out", "V"); /* the probe shows v(t - skew) */
+    tf_cycle cycles[24];
+    memset(cycles, 0, sizeof cycles);
+    for (int k = 0; k < 24; k++) {
+        /* the first cycle starts as early as the skew allows (v read at t + skew) */
+        const size_t lead = skew < -dt ? 2 : 1;
+        const size_t first = k == 0 ? lead : k == 23 ? n - 2 - 1600 : (size_t)k * 1600 + 3;
+        cycles[k].start_s = (double)first * dt;
+        cycles[k].period_s = 1600 * dt;
+    }
+    tf_segment_result seg;
+    memset(&seg, 0, sizeof seg);
+    seg.cycles = cycles;
+    seg.ncycles = 24;
     tf_roles roles = roles_of(0, 1, -1);
     tf_spectrum_options o;
     tf_spectrum_options_init(&o);
-    o.fundamental_hz = 6e3;
-    o.skew_s = 20e-9;
-    o.threads = 1;
-    tf_spectrum_result *a = run(cap, &roles, NULL, &o);
-    assert_true(a->periods * a->samples_per_period >= ((size_t)1 << 20));
-    o.threads = 3;
-    tf_spectrum_result *b = run(cap, &roles, NULL, &o);
-    for (int c = 0; c < 2; c++)
-        for (int h = 0; h < 9; h++)
-            assert_true(tf_test_reldiff(b->ch[c].harm[h].amplitude, a->ch[c].harm[h].amplitude) < 1e-12);
-    assert_true(tf_test_reldiff(b->power.mean_w, a->power.mean_w) < 1e-12);
-    assert_true(tf_test_reldiff(b->ch[0].rms, a->ch[0].rms) < 1e-12);
-    harmonic_signal v = test_voltage(6e3, 9);
-    assert_true(tf_test_reldiff(b->ch[1].harm[0].amplitude, v.amp[1]) < 1e-6);
-    tf_spectrum_free(a);
-    tf_spectrum_free(b);
+    o.fundamental_hz = f;
+    o.skew_s = skew;
+    /* source: AC power theory, as in test_spectrum_power_and_skew; the rectangle rule
+     * over a whole period of a band-limited periodic signal is exact (trigonometric
+     * sums), so each cycle's energy is P / f up to the cubic interpolation */
+    double P = v.dc * i.dc, Pskewed = v.dc * i.dc;
+    for (int h = 1; h <= 5; h++) {
+        P += 0.5 * v.amp[h] * i.amp[h] * cos(v.ph[h] - i.ph[h]);
+        Pskewed += 0.5 * v.amp[h] * i.amp[h] * cos(v.ph[h] - i.ph[h] - 2 * M_PI * h * f * skew);
+    }
+    tf_spectrum_result *r = run(cap, &roles, &seg, &o);
+    assert_int_equal(r->power.cycles, 24);
+    assert_true(tf_test_reldiff(r->power.cycle_energy_min_j, P / f) < 1e-6);
+    assert_true(tf_test_reldiff(r->power.cycle_energy_max_j, P / f) < 1e-6);
+    tf_spectrum_free(r);
+    /* uncorrected, every cycle shows the skewed power, well apart from P */
+    o.skew_s = 0.0;
+    r = run(cap, &roles, &seg, &o);
+    assert_true(tf_test_reldiff(r->power.cycle_energy_median_j, Pskewed / f) < 1e-6);
+    assert_true(tf_test_reldiff(r->power.cycle_energy_median_j, P / f) > 1e-3);
+    tf_spectrum_free(r);
     tf_capture_destroy(cap);
+}
+
+static void test_spectrum_cycle_energies_skew(void **state)
+{
+    (void)state;
+    check_cycle_energies(37e-9);
+    check_cycle_energies(-37e-9);
+    check_cycle_energies(-120e-9); /* more than a sample */
 }
 
 /* ---- JSON --------------------------------------------------------------------------- */
@@ -1037,6 +1138,7 @@ int main(void)
         cmocka_unit_test(test_spectrum_simulator_power),
         cmocka_unit_test(test_spectrum_simulator_skew),
         cmocka_unit_test(test_spectrum_threads_agree),
+        cmocka_unit_test(test_spectrum_cycle_energies_skew),
         cmocka_unit_test(test_spectrum_json_keys),
         cmocka_unit_test(test_spectrum_clipped_flag),
         cmocka_unit_test(test_spectrum_errors),

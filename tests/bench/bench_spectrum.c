@@ -22,13 +22,13 @@ static double cpu(void)
     return (double)t.tv_sec + 1e-9 * (double)t.tv_nsec;
 }
 
-static double time_run(const tf_capture *cap, const tf_roles *roles, const tf_spectrum_options *o,
-                       const char *label)
+static double time_run(const tf_capture *cap, const tf_roles *roles, const tf_segment_result *seg,
+                       const tf_spectrum_options *o, const char *label)
 {
     tf_spectrum_result *r = NULL;
     tf_error err;
     const double a = now(), ca = cpu();
-    if (tf_spectrum_run(cap, roles, NULL, o, &r, &err) != TF_OK) {
+    if (tf_spectrum_run(cap, roles, seg, o, &r, &err) != TF_OK) {
         fprintf(stderr, "%s: %s\n", label, err.msg);
         exit(1);
     }
@@ -73,17 +73,37 @@ int main(int argc, char **argv)
     tf_spectrum_options_init(&o);
     o.fundamental_hz = f; /* as the segmenter would give it */
     o.skew_s = 50e-9;
+    /* firing cycles one period apart, as the segmenter would give them: the
+     * spectrum then also integrates the energy of every cycle */
+    tf_segment_result seg;
+    memset(&seg, 0, sizeof seg);
+    seg.ncycles = (size_t)floor((double)n * dt * f) - 1;
+    seg.cycles = calloc(seg.ncycles, sizeof *seg.cycles);
+    if (!seg.cycles) {
+        fprintf(stderr, "out of memory\n");
+        return 71;
+    }
+    for (size_t c = 0; c < seg.ncycles; c++) {
+        seg.cycles[c].start_s = cap->t0_s + 5e-6 + (double)c / f;
+        seg.cycles[c].period_s = 1.0 / f;
+        seg.cycles[c].frequency_hz = f;
+    }
     printf("3 channels x %zu samples\n", n);
-    time_run(cap, &roles, &o, "synchronous, fundamental given");
-    time_run(cap, &roles, &o, "same again (plans cached)");
+    time_run(cap, &roles, NULL, &o, "synchronous, fundamental given");
+    time_run(cap, &roles, NULL, &o, "same again (plans cached)");
     o.threads = 1;
-    time_run(cap, &roles, &o, "same, one thread");
+    time_run(cap, &roles, NULL, &o, "same, one thread");
+    o.threads = 0;
+    time_run(cap, &roles, &seg, &o, "with cycle energies");
+    o.threads = 1;
+    time_run(cap, &roles, &seg, &o, "with cycle energies, one thread");
     o.threads = 0;
     o.fundamental_hz = 0.0;
-    time_run(cap, &roles, &o, "synchronous, fundamental estimated");
+    time_run(cap, &roles, NULL, &o, "synchronous, fundamental estimated");
     o.fundamental_hz = f;
     o.window = 1;
-    time_run(cap, &roles, &o, "Hann window");
+    time_run(cap, &roles, NULL, &o, "Hann window");
+    free(seg.cycles);
     tf_capture_destroy(cap);
     return 0;
 }
