@@ -747,6 +747,136 @@ static void test_fit_dsfit_garbage(void **state)
     free(x);
 }
 
+/* A warm start (a neighbouring burst's fit) and the matrix pencil reach the same
+ * minimum; a start too far away is refused and the pencil's fit returned. */
+static void test_fit_warm_start(void **state)
+{
+    (void)state;
+    const size_t n = 900;
+    const double dt = 1e-7, wd = 2 * M_PI * 11e3, alpha = 2500;
+    float *x = malloc(n * sizeof *x);
+    fit_synth_damped(x, n, dt, 80, alpha, wd, 0.4, 0, 1);
+    const double sigma = rms_of(x, n) / 100.0; /* SNR 40 dB */
+    fit_synth_damped(x, n, dt, 80, alpha, wd, 0.4, sigma, 7);
+    tf_dsfit_workspace *w = tf_dsfit_workspace_create();
+    tf_dsfit p, f;
+    tf_error e;
+    assert_int_equal(tf_dsfit_run(w, x, n, dt, NULL, &p, &e), TF_OK);
+    /* a neighbour's values: 1 % off in wd, 10 % in alpha */
+    assert_int_equal(tf_dsfit_run_from(w, x, n, dt, NULL, 1.1 * alpha, 1.01 * wd, &f, &e), TF_OK);
+    /* source: least squares has one minimum here; both stop within 1 % of u of it */
+    assert_true(fabs(f.wd_rad_s - p.wd_rad_s) < 0.05 * p.u_wd_rad_s);
+    assert_true(fabs(f.alpha_per_s - p.alpha_per_s) < 0.05 * p.u_alpha_per_s);
+    assert_true(tf_test_reldiff(f.u_alpha_per_s, p.u_alpha_per_s) < 1e-3);
+    /* the start at twice the frequency would have to move by half: refused, so the
+     * figures are exactly the pencil's */
+    assert_int_equal(tf_dsfit_run_from(w, x, n, dt, NULL, alpha, 2 * wd, &f, &e), TF_OK);
+    assert_true(f.wd_rad_s == p.wd_rad_s && f.alpha_per_s == p.alpha_per_s);
+    assert_true(f.init_wd_rad_s == p.init_wd_rad_s);
+    /* nonsense starts (above Nyquist, not finite) go to the pencil as well */
+    assert_int_equal(tf_dsfit_run_from(w, x, n, dt, NULL, alpha, 4 / dt, &f, &e), TF_OK);
+    assert_true(f.wd_rad_s == p.wd_rad_s);
+    assert_int_equal(tf_dsfit_run_from(w, x, n, dt, NULL, NAN, wd, &f, &e), TF_OK);
+    assert_true(f.wd_rad_s == p.wd_rad_s);
+    tf_dsfit_workspace_destroy(w);
+    free(x);
+}
+
+/* Bursts in blocks, lobes from their bursts, v-i windows and power periods on the
+ * threads: every figure the same on 1, 2 and 3 threads. */
+static void test_fit_threads_identical(void **state)
+{
+    (void)state;
+    fit_synth_cfg c;
+    make_stage(&c);
+    c.duration_s = 20e-3; /* more bursts than two blocks of warm starts */
+    tf_capture *cap;
+    tf_segment_result *seg;
+    fit_synth_truth tr;
+    assert_int_equal(fit_synth_make(&c, &cap, &seg, &tr), 0);
+    assert_true(seg->nbursts > 64);
+    tf_roles roles = roles_iv(1);
+    char *first = NULL;
+    const tf_fit_burst *b1 = NULL;
+    tf_fit_result *r1 = NULL;
+    for (int threads = 1; threads <= 3; threads++) {
+        tf_fit_options o;
+        tf_fit_options_init(&o);
+        o.capacitance_f = c.c_f;
+        o.thyristor_drop_v = c.vt_v;
+        o.diode_drop_v = c.vd_v;
+        o.threads = threads;
+        tf_fit_result *r;
+        tf_error e;
+        assert_int_equal(tf_fit_run(cap, &roles, seg, &o, &r, &e), TF_OK);
+        json_t *j = tf_fit_to_json(r);
+        char *s = json_dumps(j, JSON_SORT_KEYS | JSON_REAL_PRECISION(17));
+        json_decref(j);
+        size_t nb;
+        const tf_fit_burst *b = tf_fit_bursts(r, &nb);
+        assert_int_equal(nb, seg->nbursts);
+        if (!first) {
+            first = s;
+            b1 = b;
+            r1 = r;
+            continue;
+        }
+        assert_string_equal(s, first);
+        for (size_t k = 0; k < nb; k++) {
+            assert_true(b[k].status == b1[k].status);
+            if (b[k].status != TF_FITB_OK)
+                continue;
+            assert_true(b[k].fd_hz == b1[k].fd_hz && b[k].alpha_per_s == b1[k].alpha_per_s);
+            assert_true(b[k].alpha_raw_per_s == b1[k].alpha_raw_per_s);
+            assert_true(b[k].vi_resistance_ohm == b1[k].vi_resistance_ohm);
+        }
+        free(s);
+        tf_fit_free(r);
+    }
+    free(first);
+    tf_fit_free(r1);
+    fit_synth_free(cap, seg, &tr);
+}
+
+/* The power method's one pass over several skews gives what one pass per skew gives,
+ * on any number of threads. */
+static void test_fit_power_skews_one_pass(void **state)
+{
+    (void)state;
+    fit_synth_cfg c;
+    make_stage(&c);
+    tf_capture *cap;
+    tf_segment_result *seg;
+    fit_synth_truth tr;
+    assert_int_equal(fit_synth_make(&c, &cap, &seg, &tr), 0);
+    size_t bnd[64], nbnd = 0;
+    for (size_t k = 0; k < seg->ncycles && nbnd < 64; k++)
+        if (seg->cycles[k].thyristor == seg->cycles[0].thyristor)
+            bnd[nbnd++] = (size_t)floor((seg->cycles[k].start_s - cap->t0_s) / cap->dt_s + 0.5);
+    assert_true(nbnd >= 4);
+    const float *i = cap->ch[0].samples, *v = cap->ch[1].samples;
+    const double sk[3] = {c.skew_v_s, c.skew_v_s + 3.3e-9, c.skew_v_s - 3.3e-9};
+    double r3[3], u3[3];
+    tf_error e;
+    assert_int_equal(tf_power_resistance(v, i, cap->n, cap->dt_s, sk, 3, bnd, nbnd, 1, r3, u3, &e),
+                     TF_OK);
+    for (int q = 0; q < 3; q++) {
+        for (int threads = 1; threads <= 2; threads++) {
+            double r, u;
+            assert_int_equal(tf_power_resistance(v, i, cap->n, cap->dt_s, &sk[q], 1, bnd, nbnd,
+                                                 threads, &r, &u, &e), TF_OK);
+            assert_true(r == r3[q] && u == u3[q]);
+        }
+    }
+    /* source: the simulator's R (the method itself is checked against it above) */
+    assert_true(tf_test_reldiff(r3[0], c.r_ohm) < 0.03);
+    /* a later skew sees less of the voltage in phase: R moves monotonically */
+    assert_true((r3[1] - r3[0]) * (r3[0] - r3[2]) > 0);
+    assert_int_equal(tf_power_resistance(v, i, cap->n, cap->dt_s, sk, 0, bnd, nbnd, 1, r3, u3, &e),
+                     TF_ERR_USAGE);
+    fit_synth_free(cap, seg, &tr);
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -769,6 +899,9 @@ int main(void)
         cmocka_unit_test(test_fit_ngspice_reference),
         cmocka_unit_test(test_fit_simulator_ringdown),
         cmocka_unit_test(test_fit_simulator_overlapping),
+        cmocka_unit_test(test_fit_warm_start),
+        cmocka_unit_test(test_fit_threads_identical),
+        cmocka_unit_test(test_fit_power_skews_one_pass),
     };
     if (getenv("TF_TEST_FILTER")) /* run one case by name, e.g. for timing */
         cmocka_set_test_filter(getenv("TF_TEST_FILTER"));
