@@ -23,6 +23,9 @@ double tf_fit_interp(const float *x, size_t n, double pos)
     return x[k] + f * ((double)x[k + 1] - (double)x[k]);
 }
 
+/* Two doubles in one SIMD register (GCC/Clang vector extension). */
+typedef double v2d __attribute__((vector_size(16)));
+
 /* A channel read at k + sh for a fixed shift sh (samples): linear interpolation with
  * the integer and fractional parts split once, clamped at the ends as tf_fit_interp. */
 typedef struct shifted {
@@ -98,21 +101,36 @@ static int window_ls(const float *v, const float *i, size_t n, double dt, const 
     double G[NPAR * NPAR] = {0}, b[NPAR] = {0}, sc[NPAR];
     const shifted vs = shifted_make(v, n, tau / dt);
     /* regressors (q2, q1, t^2/2, q3, t, 1): the sums of the last three among
-     * themselves are power sums of the sample index; the rest are named scalars
-     * (an array of regressors per sample was spilled through the stack) */
-    double g00 = 0, g01 = 0, g02 = 0, g03 = 0, g04 = 0, g05 = 0, g11 = 0, g12 = 0, g13 = 0;
-    double g14 = 0, g15 = 0, g23 = 0, g33 = 0, g34 = 0, g35 = 0;
-    double b0 = 0, b1 = 0, b2 = 0, b3 = 0, b4 = 0, b5 = 0;
+     * themselves are power sums of the sample index; the others are summed in pairs,
+     * (q2, q1) and (q3, Y) times each regressor (vector extension: both SIMD lanes) */
+    const v2d zero = {0.0, 0.0};
+    v2d a_q2 = zero, a_tt = zero, a_q3 = zero, a_t = zero, a_1 = zero, a_y = zero;
+    v2d c_q3 = zero, c_tt = zero, c_t = zero, c_1 = zero;
+    double g11 = 0;
     integ s0 = {0};
     for (size_t k = w->i0; k < w->i1; k++) {
         integ_step(&s0, shifted_at(&vs, k), i[k], dt, k == w->i0);
         const double t = (double)(k - w->i0) * dt, tt = 0.5 * t * t;
-        const double q2 = s0.q2, q1 = s0.q1, q3 = s0.q3, Y = s0.y2;
-        g00 += q2 * q2; g01 += q2 * q1; g02 += q2 * tt; g03 += q2 * q3; g04 += q2 * t; g05 += q2;
-        g11 += q1 * q1; g12 += q1 * tt; g13 += q1 * q3; g14 += q1 * t; g15 += q1;
-        g23 += tt * q3; g33 += q3 * q3; g34 += q3 * t; g35 += q3;
-        b0 += q2 * Y; b1 += q1 * Y; b2 += tt * Y; b3 += q3 * Y; b4 += t * Y; b5 += Y;
+        const v2d A = {s0.q2, s0.q1}, C = {s0.q3, s0.y2};
+        a_q2 += A * s0.q2;     /* g00, g01 */
+        a_tt += A * tt;        /* g02, g12 */
+        a_q3 += A * s0.q3;     /* g03, g13 */
+        a_t += A * t;          /* g04, g14 */
+        a_1 += A;              /* g05, g15 */
+        a_y += A * s0.y2;      /* b0, b1 */
+        c_q3 += C * s0.q3;     /* g33, b3 */
+        c_tt += C * tt;        /* g23, b2 */
+        c_t += C * t;          /* g34, b4 */
+        c_1 += C;              /* g35, b5 */
+        g11 += s0.q1 * s0.q1;
     }
+    double l[20];
+    const v2d all[10] = {a_q2, a_tt, a_q3, a_t, a_1, a_y, c_q3, c_tt, c_t, c_1};
+    memcpy(l, all, sizeof l);
+    const double g00 = l[0], g01 = l[1], g02 = l[2], g12 = l[3], g03 = l[4], g13 = l[5];
+    const double g04 = l[6], g14 = l[7], g05 = l[8], g15 = l[9], b0 = l[10], b1 = l[11];
+    const double g33 = l[12], b3 = l[13], g23 = l[14], b2 = l[15], g34 = l[16], b4 = l[17];
+    const double g35 = l[18], b5 = l[19];
     double ps[5];
     power_sums(w->i1 - w->i0, ps);
     const double d2 = dt * dt;
