@@ -127,10 +127,10 @@ static inline size_t stencil(double pos, size_t n, double wt[4])
         k = (long)n - 4;
     const double u = pos - (double)k;
     const double a = u - 1.0, b = u - 2.0, c = u - 3.0;
-    wt[0] = -(a * b * c / 6.0);
+    wt[0] = -(a * b * c * TF_SP_SIXTH);
     wt[1] = u * b * c * 0.5;
     wt[2] = -(u * a * c * 0.5);
-    wt[3] = u * a * b / 6.0;
+    wt[3] = u * a * b * TF_SP_SIXTH;
     return (size_t)k;
 }
 
@@ -188,10 +188,10 @@ static void tile_stencils(double p0, double step, size_t j0, size_t L, size_t n,
             const double u = pos - (double)k;
             const double a = u - 1.0, b = u - 2.0, c = u - 3.0;
             ki[q] = k;
-            t->w[0][q] = -(a * b * c / 6.0);
+            t->w[0][q] = -(a * b * c * TF_SP_SIXTH);
             t->w[1][q] = u * b * c * 0.5;
             t->w[2][q] = -(u * a * c * 0.5);
-            t->w[3][q] = u * a * b / 6.0;
+            t->w[3][q] = u * a * b * TF_SP_SIXTH;
         }
         for (size_t q = 0; q < L; q++)
             t->k[q] = (size_t)ki[q];
@@ -205,34 +205,77 @@ static void tile_stencils(double p0, double step, size_t j0, size_t L, size_t n,
     }
 }
 
+/* Largest |x[k]| (0 for none; NANs are passed over), in eight lanes so that the
+ * compiler keeps it in vector registers: a maximum does not depend on the order. */
+static double abs_max(const float *x, size_t n)
+{
+    float m[8] = {0};
+    size_t k = 0;
+    for (; k + 8 <= n; k += 8)
+        for (int j = 0; j < 8; j++) {
+            const float a = fabsf(x[k + j]);
+            m[j] = a > m[j] ? a : m[j];
+        }
+    for (; k < n; k++) {
+        const float a = fabsf(x[k]);
+        m[0] = a > m[0] ? a : m[0];
+    }
+    float r = 0.0f;
+    for (int j = 0; j < 8; j++)
+        r = m[j] > r ? m[j] : r;
+    return r;
+}
+
+/* One tile of one period: values of NW channels (a constant in each caller, so the
+ * channel loop unrolls) folded into fold[c][q], squares and v i summed in point order. */
+static inline void fold_tile(const int NW, const tile *const tc[MAX_CH],
+                             const float *const x[MAX_CH], double *const fold[MAX_CH],
+                             size_t L, int iv, int ii, double sq[MAX_CH], double *pvi)
+{
+    for (size_t q = 0; q < L; q++) {
+        double val[MAX_CH];
+        for (int c = 0; c < NW; c++) {
+            const tile *tg = tc[c];
+            const float *p = x[c] + tg->k[q];
+            const double v = tg->w[0][q] * p[0] + tg->w[1][q] * p[1] + tg->w[2][q] * p[2] +
+                             tg->w[3][q] * p[3];
+            val[c] = v;
+            fold[c][q] += v;
+            sq[c] += v * v;
+        }
+        if (iv >= 0)
+            *pvi += val[iv] * val[ii];
+    }
+}
+
 /* Fold block b: resample every channel on the grid of its periods and add the values
  * into one period; sums of squares and of v i period by period. */
 static void fold_block(pass *P, size_t b)
 {
     const size_t S = P->S, m0 = P->M * b / P->nblocks, m1 = P->M * (b + 1) / P->nblocks;
+    const int nw = P->nw;
     tile t[MAX_CH];
-    double sumsq[MAX_CH] = {0}, vi = 0.0, val[MAX_CH];
+    const tile *tc[MAX_CH];
+    for (int c = 0; c < nw; c++)
+        tc[c] = &t[P->grp[c]];
+    double sumsq[MAX_CH] = {0}, vi = 0.0;
     for (size_t m = m0; m < m1; m++) {
         double sq[MAX_CH] = {0}, pvi = 0.0;
         for (size_t s0 = 0; s0 < S; s0 += TILE) {
             const size_t L = S - s0 < TILE ? S - s0 : TILE;
             for (int g = 0; g < P->ng; g++)
                 tile_stencils(P->gpos[g], P->step, m * S + s0, L, P->n, &t[g]);
-            for (size_t q = 0; q < L; q++) {
-                for (int c = 0; c < P->nw; c++) {
-                    const tile *tg = &t[P->grp[c]];
-                    const float *p = P->x[c] + tg->k[q];
-                    const double v = tg->w[0][q] * p[0] + tg->w[1][q] * p[1] +
-                                     tg->w[2][q] * p[2] + tg->w[3][q] * p[3];
-                    val[c] = v;
-                    P->fold[b][c][s0 + q] += v;
-                    sq[c] += v * v;
-                }
-                if (P->iv >= 0)
-                    pvi += val[P->iv] * val[P->ii];
-            }
+            double *f[MAX_CH];
+            for (int c = 0; c < nw; c++)
+                f[c] = P->fold[b][c] + s0;
+            if (nw == 3)
+                fold_tile(3, tc, P->x, f, L, P->iv, P->ii, sq, &pvi);
+            else if (nw == 2)
+                fold_tile(2, tc, P->x, f, L, P->iv, P->ii, sq, &pvi);
+            else
+                fold_tile(1, tc, P->x, f, L, P->iv, P->ii, sq, &pvi);
         }
-        for (int c = 0; c < P->nw; c++)
+        for (int c = 0; c < nw; c++)
             sumsq[c] += sq[c];
         vi += pvi;
     }
@@ -241,11 +284,7 @@ static void fold_block(pass *P, size_t b)
         /* the block's share of the raw samples (a maximum does not depend on the split) */
         const long k0 = P->raw_a[c] + (long)((size_t)P->raw_len[c] * b / P->nblocks);
         const long k1 = P->raw_a[c] + (long)((size_t)P->raw_len[c] * (b + 1) / P->nblocks);
-        double pk = 0.0;
-        for (long k = k0; k < k1; k++)
-            if (fabs(P->x[c][k]) > pk)
-                pk = fabs(P->x[c][k]);
-        P->peak[b][c] = pk;
+        P->peak[b][c] = abs_max(P->x[c] + k0, (size_t)(k1 - k0));
     }
     P->vi[b] = vi;
 }
@@ -259,8 +298,8 @@ static double cycle_sum(const pass *P, long ka, long kb)
     const long o = (long)fl - 1, n = (long)P->n;
     const double u = 1.0 + (P->sk - fl);
     const double a = u - 1.0, b = u - 2.0, c = u - 3.0;
-    const double w0 = -(a * b * c / 6.0), w1 = u * b * c * 0.5, w2 = -(u * a * c * 0.5),
-                 w3 = u * a * b / 6.0;
+    const double w0 = -(a * b * c * TF_SP_SIXTH), w1 = u * b * c * 0.5,
+                 w2 = -(u * a * c * 0.5), w3 = u * a * b * TF_SP_SIXTH;
     long lo = ka > -o ? ka : -o, hi = kb < n - 3 - o ? kb : n - 3 - o;
     if (hi < lo)
         lo = hi = kb;
