@@ -65,40 +65,26 @@ double tf_csv_resolution(const tf_num_text *nt, int sig_digits)
     return pow10i(last);
 }
 
+/* Decimal digits of m, 1 <= m < 10^19: from the bit length, then one compare. */
+static long digits10(uint64_t m)
+{
+    static const uint64_t p10[20] = {1ull, 10ull, 100ull, 1000ull, 10000ull, 100000ull,
+        1000000ull, 10000000ull, 100000000ull, 1000000000ull, 10000000000ull,
+        100000000000ull, 1000000000000ull, 10000000000000ull, 100000000000000ull,
+        1000000000000000ull, 10000000000000000ull, 100000000000000000ull,
+        1000000000000000000ull, 10000000000000000000ull};
+    int bits = 64 - __builtin_clzll(m);
+    long g = (bits * 1233) >> 12; /* 1233 / 4096 ~ log10(2): g = digits - 1 or digits */
+    return g + (m >= p10[g]);
+}
+
 int tf_csv_time_value(const char *s, size_t len, char decimal, int sig_digits, double *value,
                       double *q)
 {
     /* one pass for the value (Clinger's fast path, as tf_parse_field) and the
      * printed form; anything unusual goes through the general parser */
-    size_t i = 0;
-    int neg = 0, eneg = 0;
-    if (len && (s[0] == '-' || s[0] == '+'))
-        neg = s[i++] == '-';
-    uint64_t m = 0;
-    size_t d0 = i;
-    while (i < len && (unsigned)(s[i] - '0') < 10)
-        m = m * 10 + (uint64_t)(s[i++] - '0');
-    size_t nint = i - d0, nfrac = 0;
-    if (i < len && s[i] == decimal) {
-        size_t f0 = ++i;
-        while (i < len && (unsigned)(s[i] - '0') < 10)
-            m = m * 10 + (uint64_t)(s[i++] - '0');
-        nfrac = i - f0;
-    }
-    long x = 0;
-    if (i < len && (s[i] == 'e' || s[i] == 'E') && i + 1 < len) {
-        i++;
-        if (s[i] == '-' || s[i] == '+')
-            eneg = s[i++] == '-';
-        size_t x0 = i;
-        for (; i < len && (unsigned)(s[i] - '0') < 10 && x < 1000; i++)
-            x = x * 10 + (s[i] - '0');
-        if (i == x0)
-            i = len + 1; /* no exponent digits: not a plain number */
-    }
-    size_t nd = nint + nfrac;
-    long e = (eneg ? -x : x) - (long)nfrac;
-    if (i != len || nd == 0 || nd > 15 || e < -22 || e > 22 || m == 0) {
+    tf_short_dec d;
+    if (!(FLT_EVAL_METHOD == 0) || tf_scan_short(s, len, decimal, &d) != 0 || d.m == 0) {
         tf_num_text nt;
         if (tf_parse_field(s, len, decimal, value) != 0)
             return -1;
@@ -106,14 +92,11 @@ int tf_csv_time_value(const char *s, size_t len, char decimal, int sig_digits, d
         *q = tf_csv_resolution(&nt, sig_digits);
         return 0;
     }
-    double v = (double)m;
-    v = e < 0 ? v / tf_pow10_exact[-e] : v * tf_pow10_exact[e];
-    *value = neg ? -v : v;
-    /* m != 0 has nd10 = number of digits of m; its lead digit sits at e + nd10 - 1 */
-    long nd10 = 1;
-    for (uint64_t p10 = 10; nd10 < 16 && m >= p10; p10 *= 10)
-        nd10++;
-    long last = e, lead = e + nd10 - 1;
+    double v = (double)d.m;
+    v = d.e < 0 ? v / tf_pow10_exact[-d.e] : v * tf_pow10_exact[d.e];
+    *value = d.neg ? -v : v;
+    /* the lead digit of m sits at e + digits(m) - 1, its last at e */
+    long last = d.e, lead = d.e + digits10(d.m) - 1;
     if (sig_digits > 0 && lead - sig_digits + 1 < last)
         last = lead - sig_digits + 1;
     *q = pow10i(last);

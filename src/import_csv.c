@@ -14,6 +14,9 @@
 #include <string.h>
 #include <sys/stat.h>
 #include <unistd.h>
+#if defined(__SSE2__) && defined(__x86_64__)
+#include <emmintrin.h>
+#endif
 
 #include "csv_internal.h"
 #include "numparse.h"
@@ -43,10 +46,13 @@ typedef struct csv_worker {
     /* copies of what every field needs, kept next to the row state */
     const int *map;
     float **out;
+    float **dst;                         /* per channel: out[m] + base (this part's rows) */
     const double *factor;
     size_t ncols;
     int space_mode;
     char decimal;
+    int time_sig;                        /* the layout's time_sig */
+    double time_factor;                  /* the time column's unit factor */
     size_t begin, end;                   /* byte range [begin, end), starting at a line */
     size_t line;                         /* line number of the row being read */
     size_t base, cap;                    /* global index of local row 0; rows allowed */
@@ -140,10 +146,9 @@ static void bad_number(csv_worker *w, size_t c, const char *s, size_t len)
          tf_error_excerpt(ex, sizeof ex, s, (unsigned)len, TF_CSV_EXCERPT));
 }
 
-static void on_field(void *data, size_t len, void *ctx)
+/* Every field the fast path of on_field does not finish: the full rules. */
+static void field_slow(csv_worker *w, const char *s, size_t len)
 {
-    csv_worker *w = ctx;
-    const char *s = data;
     if (w->halt || (len == 0 && w->space_mode))
         return;
     size_t c = w->col++;
@@ -198,6 +203,38 @@ static void on_field(void *data, size_t len, void *ctx)
         return;
     }
     w->out[m][w->base + w->row] = (float)v;
+}
+
+static void on_field(void *data, size_t len, void *ctx)
+{
+    csv_worker *w = ctx;
+    const char *s = data;
+    /* the common field: a channel value in a row within the capacity, a short
+     * plain number in range; everything else (and every error) goes the long way */
+    size_t c = w->col;
+    if (!w->halt && len != 0 && c < w->ncols && w->row < w->cap) {
+        int m = w->map[c];
+        double v;
+        if (m >= 0 && tf_parse_field(s, len, w->decimal, &v) == 0) {
+            v *= w->factor[m];
+            if (fabs(v) <= FLT_MAX) { /* false for NaN and infinities too */
+                w->dst[m][w->row] = (float)v;
+                w->col = c + 1;
+                return;
+            }
+        } else if (m == MAP_TIME) {
+            double t, q;
+            if (tf_csv_time_value(s, len, w->decimal, w->time_sig, &t, &q) == 0 &&
+                fabs(t) <= DBL_MAX) {
+                w->t = t * w->time_factor;
+                w->q = q * w->time_factor;
+                w->have_t = 1;
+                w->col = c + 1;
+                return;
+            }
+        }
+    }
+    field_slow(w, s, len);
 }
 
 static void on_row(int term, void *ctx)
@@ -269,6 +306,27 @@ static int view_get(const tf_csv_source *src, size_t off, size_t len, view *v)
 
 /* ---- the two passes over a part: count line ends, then parse ---- */
 
+/* How many bytes of p[0..n) equal c. SSE2 (on every x86-64): 16 byte counters,
+ * emptied into 64-bit sums before they can wrap; elsewhere a plain loop. */
+static size_t count_byte(const char *p, size_t n, char c)
+{
+    size_t count = 0, i = 0;
+#if defined(__SSE2__) && defined(__x86_64__)
+    const __m128i want = _mm_set1_epi8(c), zero = _mm_setzero_si128();
+    while (n - i >= 16) {
+        size_t blocks = (n - i) / 16 < 255 ? (n - i) / 16 : 255;
+        __m128i acc = zero;
+        for (size_t b = 0; b < blocks; b++, i += 16) /* a match is -1: subtract it */
+            acc = _mm_sub_epi8(acc, _mm_cmpeq_epi8(_mm_loadu_si128((const __m128i *)(p + i)), want));
+        __m128i sums = _mm_sad_epu8(acc, zero);
+        count += (size_t)_mm_cvtsi128_si64(sums) + (size_t)_mm_cvtsi128_si64(_mm_unpackhi_epi64(sums, sums));
+    }
+#endif
+    for (; i < n; i++)
+        count += p[i] == c;
+    return count;
+}
+
 static void *count_part(void *arg)
 {
     csv_worker *w = arg;
@@ -281,10 +339,7 @@ static void *count_part(void *arg)
             snprintf(w->msg, sizeof w->msg, "%s: cannot read at byte %zu", w->job->src->path, off);
             break;
         }
-        size_t n = 0;
-        for (size_t i = 0; i < want; i++)
-            n += v.p[i] == term;
-        w->terms += n;
+        w->terms += count_byte(v.p, want, term);
         w->quotes |= memchr(v.p, '"', want) != NULL;
         off += want;
     }
@@ -561,12 +616,17 @@ static tf_status run_parse(const tf_csv_source *src, const tf_csv_layout *lay, c
         w[i].ncols = lay->ncols;
         w[i].space_mode = lay->space_mode;
         w[i].decimal = lay->decimal;
+        w[i].time_sig = lay->time_sig;
+        w[i].time_factor = lay->time_col >= 0 ? lay->cols[lay->time_col].factor : 1;
         w[i].comment = lay->comment ? lay->comment : '#';
         w[i].gaps = calloc(2 * (job->nout ? job->nout : 1), sizeof(size_t));
-        if (!w[i].gaps)
+        w[i].dst = malloc((job->nout ? job->nout : 1) * sizeof *w[i].dst);
+        if (!w[i].gaps || !w[i].dst)
             st = tf_error_set(err, TF_ERR_NOMEM, "out of memory");
         else
             w[i].gap_line = w[i].gaps + job->nout;
+        for (size_t m = 0; m < job->nout && st == TF_OK; m++)
+            w[i].dst[m] = out[m] + w[i].base;
         if (st == TF_OK && lay->time_col >= 0)
             st = tf_time_acc_init(&w[i].time, lay->t_ref, lay->d_ref, w[i].cap, err);
     }
@@ -729,6 +789,7 @@ static tf_status import_source(const tf_csv_source *src, const tf_import_options
         st = tf_import_apply_options(cap, opt, err);
     for (size_t i = 0; i < nw; i++) {
         free(w[i].gaps);
+        free(w[i].dst);
         tf_time_acc_free(&w[i].time);
     }
     free(map);

@@ -5,6 +5,7 @@
 #include <float.h>
 #include <stddef.h>
 #include <stdint.h>
+#include <string.h>
 
 /* Parse a decimal floating-point number at s[0..len) with decimal mark `decimal`
  * ('.' or ','): optional sign, digits, optional fraction, optional exponent
@@ -17,6 +18,111 @@ int tf_parse_double(const char *s, size_t len, char decimal, double *value, cons
 /* Powers of ten that are exact doubles (10^0 .. 10^22). */
 extern const double tf_pow10_exact[23];
 
+/* A short plain decimal as the fast path reads it: value = (neg ? -1 : 1) * m * 10^e. */
+typedef struct tf_short_dec {
+    uint64_t m;                    /* every digit, as one integer (< 10^15) */
+    long e;                        /* -37 .. 22 */
+    int neg;
+} tf_short_dec;
+
+#if defined(__BYTE_ORDER__) && __BYTE_ORDER__ == __ORDER_LITTLE_ENDIAN__ && defined(__GNUC__)
+#define TF_SWAR_DIGITS 1
+#else
+#define TF_SWAR_DIGITS 0
+#endif
+
+#if TF_SWAR_DIGITS
+/* The leading decimal digits among the 8 bytes at p (all readable): returns how
+ * many (0 .. 8) and stores their value. Eight bytes at once (SWAR) in place of a
+ * loop with a branch and a multiply per digit. */
+static inline unsigned tf_swar_digits(const char *p, uint64_t *value)
+{
+    uint64_t x;
+    memcpy(&x, p, 8);
+    x ^= 0x3030303030303030u; /* a digit byte becomes 0 .. 9 */
+    /* bit 7 of each byte set where the byte is not 0 .. 9 (no carry between bytes) */
+    uint64_t bad = (((x & 0x7f7f7f7f7f7f7f7fu) + 0x7676767676767676u) | x) & 0x8080808080808080u;
+    unsigned k = bad ? (unsigned)__builtin_ctzll(bad) >> 3 : 8;
+    /* the k digits (first in the lowest byte) to the top, leading zero digits below */
+    x = k ? x << (64 - 8 * k) : 0;
+    /* pairs, then quads, then all eight: the byte order of an ASCII number read
+     * little-endian (as in D. Lemire's fast_float, parse_eight_digits_unrolled) */
+    x = x * 10 + (x >> 8);
+    x = (((x & 0x000000ff000000ffu) * (100 + (1000000ull << 32))) +
+         (((x >> 16) & 0x000000ff000000ffu) * (1 + (10000ull << 32)))) >> 32;
+    *value = (uint32_t)x;
+    return k;
+}
+#endif
+
+/* Read the whole field s[0..len) when it is [sign] digits [mark digits]
+ * [e|E [sign] digits] with 1 to 15 digits and a decimal exponent within
+ * -22 .. 22 after the fraction is taken out: returns 0 and fills d. Returns -1
+ * for anything else (which may still be a number: take tf_parse_double). The
+ * shapes a scope prints (`-1.23456e-03`) take the fewest instructions: a short
+ * integer part digit by digit, the fraction eight bytes at once, a two-digit
+ * exponent without a loop. */
+static inline int tf_scan_short(const char *s, size_t len, char decimal, tf_short_dec *d)
+{
+    if (len == 0)
+        return -1;
+    const char *p = s, *end = s + len;
+    d->neg = *p == '-';
+    p += d->neg | (*p == '+');
+    const char *d0 = p;
+    uint64_t m = 0; /* modulo 2^64: more than 15 digits are refused below */
+    while (p < end && (unsigned)(*p - '0') < 10)
+        m = m * 10 + (uint64_t)(*p++ - '0');
+    size_t nd = (size_t)(p - d0);
+    long e = 0;
+    if (p < end && *p == decimal) {
+        const char *f0 = ++p;
+#if TF_SWAR_DIGITS
+        static const uint64_t p10[9] = {1, 10, 100, 1000, 10000, 100000, 1000000, 10000000,
+                                        100000000};
+        uint64_t v;
+        unsigned k = 8;
+        while (k == 8 && end - p >= 8) {
+            k = tf_swar_digits(p, &v);
+            m = m * p10[k] + v;
+            p += k;
+        }
+        if (k == 8)
+#endif
+            while (p < end && (unsigned)(*p - '0') < 10)
+                m = m * 10 + (uint64_t)(*p++ - '0');
+        e = -(long)(p - f0);
+        nd += (size_t)(p - f0);
+    }
+    if (nd - 1 >= 15) /* 0 or more than 15 digits */
+        return -1;
+    if (p < end) {
+        if ((*p != 'e' && *p != 'E') || ++p == end)
+            return -1;
+        int eneg = *p == '-';
+        long x;
+        if (end - p == 3 && (eneg || *p == '+')) { /* e-03, e+02 */
+            unsigned a = (unsigned)(p[1] - '0'), b = (unsigned)(p[2] - '0');
+            if (a >= 10 || b >= 10)
+                return -1;
+            x = (long)(a * 10 + b);
+        } else {
+            p += eneg || *p == '+';
+            const char *x0 = p;
+            for (x = 0; p < end && (unsigned)(*p - '0') < 10 && x < 1000; p++)
+                x = x * 10 + (*p - '0');
+            if (p != end || p == x0)
+                return -1;
+        }
+        e += eneg ? -x : x;
+    }
+    if (e < -22 || e > 22)
+        return -1;
+    d->m = m;
+    d->e = e;
+    return 0;
+}
+
 /* The whole field s[0..len) as a number: returns 0 and the correctly rounded
  * value, or -1 when the field is not exactly one number. Inline fast path
  * (Clinger 1990: at most 15 digits, |exponent| <= 22, one IEEE operation) for
@@ -24,51 +130,16 @@ extern const double tf_pow10_exact[23];
 static inline int tf_parse_field(const char *s, size_t len, char decimal, double *value)
 {
 #if defined(FLT_EVAL_METHOD) && FLT_EVAL_METHOD == 0
-    size_t i = 0;
-    int neg = 0;
-    if (len && (s[0] == '-' || s[0] == '+'))
-        neg = s[i++] == '-';
-    uint64_t m = 0;
-    size_t d0 = i;
-    while (i < len && (unsigned)(s[i] - '0') < 10)
-        m = m * 10 + (uint64_t)(s[i++] - '0');
-    long e = 0;
-    size_t nd = i - d0;
-    if (i < len && s[i] == decimal) {
-        size_t f0 = ++i;
-        while (i < len && (unsigned)(s[i] - '0') < 10)
-            m = m * 10 + (uint64_t)(s[i++] - '0');
-        e = -(long)(i - f0);
-        nd += i - f0;
-    }
-    if (nd == 0 || nd > 15)
-        goto slow;
-    if (i < len && (s[i] == 'e' || s[i] == 'E')) {
-        int eneg = 0;
-        long x = 0;
-        ++i;
-        if (i < len && (s[i] == '-' || s[i] == '+'))
-            eneg = s[i++] == '-';
-        if (i == len)
-            goto slow;
-        for (; i < len && (unsigned)(s[i] - '0') < 10 && x < 1000; i++)
-            x = x * 10 + (s[i] - '0');
-        e += eneg ? -x : x;
-    }
-    if (i != len || e < -22 || e > 22)
-        goto slow;
-    {
-        double v = (double)m; /* exact: m < 10^15 < 2^53 */
-        v = e < 0 ? v / tf_pow10_exact[-e] : v * tf_pow10_exact[e];
-        *value = neg ? -v : v;
+    tf_short_dec d;
+    if (tf_scan_short(s, len, decimal, &d) == 0) {
+        double v = (double)d.m; /* exact: m < 10^15 < 2^53 */
+        v = d.e < 0 ? v / tf_pow10_exact[-d.e] : v * tf_pow10_exact[d.e];
+        *value = d.neg ? -v : v;
         return 0;
     }
-slow:
 #endif
-    {
-        const char *end;
-        return tf_parse_double(s, len, decimal, value, &end) == 0 && end == s + len ? 0 : -1;
-    }
+    const char *end;
+    return tf_parse_double(s, len, decimal, value, &end) == 0 && end == s + len ? 0 : -1;
 }
 
 #endif

@@ -1,4 +1,4 @@
-/* Tests of the fast exact number parser against glibc strtod (correctly rounded). */
+/* Tests of the fast exact number parser against glibc strtod and Python float() (correctly rounded). */
 #define _GNU_SOURCE /* strtod_l */
 #include "tf_test.h"
 
@@ -187,6 +187,178 @@ static void test_numparse_long_input(void **state)
     assert_true(bits(got) == bits(want));
 }
 
+/* tf_parse_field takes the whole field or nothing: it must accept exactly the
+ * texts strtod reads to their end, with strtod's value bit for bit. The field is
+ * copied into a buffer of exactly its length (no NUL), so a read past the field
+ * is an AddressSanitizer error; and again followed by digits, which must not
+ * change the value. */
+static void check_field_dec(const char *s, char decimal)
+{
+    size_t len = strlen(s), used = 0;
+    char ref[80];
+    snprintf(ref, sizeof ref, "%s", s);
+    if (decimal != '.') { /* strtod reads '.', the field has the other mark */
+        char *d = strchr(ref, decimal);
+        if (d)
+            *d = '.';
+        else if (strchr(ref, '.'))
+            ref[0] = 'x'; /* a '.' in a decimal-comma field ends the number early */
+    }
+    double want = len ? ref_strtod(ref, &used) : 0;
+    int whole = len > 0 && used == len && ref[0] != ' ';
+    char *exact = malloc(len ? len : 1);
+    assert_non_null(exact);
+    memcpy(exact, s, len);
+    double got = -12345;
+    int r = tf_parse_field(exact, len, decimal, &got);
+    free(exact);
+    if (r != (whole ? 0 : -1))
+        fail_msg("'%s': tf_parse_field returns %d, strtod reads %zu of %zu chars", s, r, used, len);
+    if (!whole)
+        return;
+    if (isnan(want) ? !isnan(got) : bits(got) != bits(want))
+        fail_msg("'%s': tf_parse_field %a, strtod %a", s, got, want);
+    char padded[96];
+    snprintf(padded, sizeof padded, "%s99999999", s);
+    double again = -12345;
+    assert_int_equal(tf_parse_field(padded, len, decimal, &again), 0);
+    if (isnan(want) ? !isnan(again) : bits(again) != bits(got))
+        fail_msg("'%s' followed by digits: %a, alone %a", s, again, got);
+}
+
+static void check_field(const char *s)
+{
+    check_field_dec(s, '.');
+}
+
+/* Random digits for the shapes below: a leading zero now and then. */
+static void put_digits(char *buf, size_t *k, int n)
+{
+    for (int d = 0; d < n; d++)
+        buf[(*k)++] = (char)('0' + (next_u64() % 8 == 0 ? 0 : next_u64() % 10));
+}
+
+/* One text of the shapes the fast path distinguishes: sign, 0-3 integer digits,
+ * no mark or a mark with 0-18 fraction digits (the eight-byte step and its
+ * edges), an exponent in each form it reads (two digits with a sign without a
+ * loop, others with one) or a broken one, and now and then a byte after the
+ * digits that is near a digit in value (':', '/') or not ASCII. */
+static void shape_number(char *buf, size_t size, int intd, int fracd, int form, int tail)
+{
+    static const char *const exps[] = {"",     "e-03", "E+02", "e5",   "e+5",  "e-22", "e22",
+                                       "e-23", "e0005", "e",   "e-",   "e+0a", "e-0",  "ee",
+                                       "e+99", "E-1",  "e123", "e-08", "e+1x", "e1000"};
+    static const char *const tails[] = {"", ":", "/", "x", "\x80", "\xff", " ", "."};
+    size_t k = 0;
+    int sign = (int)(next_u64() % 3);
+    if (sign)
+        buf[k++] = sign == 1 ? '-' : '+';
+    put_digits(buf, &k, intd);
+    if (fracd >= 0) {
+        buf[k++] = '.';
+        put_digits(buf, &k, fracd);
+    }
+    k += (size_t)snprintf(buf + k, size - k, "%s%s", exps[form % 20], tails[tail % 8]);
+    buf[k] = '\0';
+}
+
+static void test_numparse_field_shapes(void **state)
+{
+    (void)state;
+    char buf[80];
+    for (int intd = 0; intd <= 3; intd++)
+        for (int fracd = -1; fracd <= 18; fracd++)
+            for (int form = 0; form < 20; form++)
+                for (int tail = 0; tail < 8; tail++)
+                    for (int rep = 0; rep < 3; rep++) {
+                        shape_number(buf, sizeof buf, intd, fracd, form, tail);
+                        check_field(buf);
+                    }
+    const char *cases[] = {"", "-", "+", ".", "-.", "e5", ".e5", "1.5e-03", "-0.0", "+0",
+                           "123456789012345", "1234567890123456", "0.12345678", "0.123456789",
+                           "12345678.1234567", "1.2345678901234e-22", "9.99999999999999e22",
+                           "inf", "-nan", NULL};
+    for (int i = 0; cases[i]; i++)
+        check_field(cases[i]);
+    /* a number, then a NUL byte, is not one number; nor is a hexadecimal float,
+     * which strtod reads (docs/import-csv.md: not numbers in a capture) */
+    double v;
+    assert_int_equal(tf_parse_field("1.5\0" "5", 4, '.', &v), -1);
+    assert_int_equal(tf_parse_field("0x1p3", 5, '.', &v), -1);
+    /* the decimal comma takes the same paths */
+    for (int i = 0; i < 20000; i++) {
+        shape_number(buf, sizeof buf, (int)(next_u64() % 4), (int)(next_u64() % 20) - 1,
+                     (int)(next_u64() % 20), (int)(next_u64() % 8));
+        char *d = strchr(buf, '.');
+        if (d)
+            *d = ',';
+        check_field_dec(buf, ',');
+    }
+}
+
+static void test_numparse_field_random_vs_strtod(void **state)
+{
+    (void)state;
+    char buf[64];
+    for (int i = 0; i < 300000; i++) {
+        random_number(buf, sizeof buf);
+        check_field(buf);
+    }
+    for (int i = 0; i < 100000; i++) { /* the scope-export shape, both signs of everything */
+        double x = (double)(int64_t)(next_u64() % 20000001) - 10000000;
+        snprintf(buf, sizeof buf, "%.*e", (int)(next_u64() % 12),
+                 x * pow(10, (int)(next_u64() % 40) - 20));
+        check_field(buf);
+    }
+}
+
+/* A second reference: Python's float() (CPython reads decimal text correctly
+ * rounded, with David Gay's algorithm), bit patterns printed by struct.pack. */
+static void test_numparse_field_vs_python(void **state)
+{
+    (void)state;
+    if (!tf_test_have("/usr/bin/python3"))
+        skip();
+    enum { N = 4000 };
+    static char texts[N][80];
+    static double got[N];
+    size_t n = 0;
+    while (n < N) {
+        char buf[80];
+        if (next_u64() % 2)
+            shape_number(buf, sizeof buf, (int)(next_u64() % 4), (int)(next_u64() % 19),
+                         (int)(next_u64() % 8), 0);
+        else
+            random_number(buf, sizeof buf);
+        if (tf_parse_field(buf, strlen(buf), '.', &got[n]) != 0)
+            continue;
+        memcpy(texts[n++], buf, sizeof buf);
+    }
+    const char *in = tf_test_tmpfile("numparse-texts.txt");
+    const char *out = tf_test_tmpfile("numparse-python.txt");
+    FILE *f = fopen(in, "w");
+    assert_non_null(f);
+    for (size_t i = 0; i < n; i++)
+        fprintf(f, "%s\n", texts[i]);
+    assert_int_equal(fclose(f), 0);
+    assert_int_equal(tf_test_system("/usr/bin/python3 -c 'import struct, sys\n"
+                                    "for t in open(sys.argv[1]).read().split():\n"
+                                    "    print(struct.pack(\">d\", float(t)).hex())' '%s' > '%s'",
+                                    in, out),
+                     0);
+    f = fopen(out, "r");
+    assert_non_null(f);
+    size_t i = 0;
+    unsigned long long want;
+    while (i < n && fscanf(f, "%llx", &want) == 1) {
+        if (bits(got[i]) != (uint64_t)want)
+            fail_msg("'%s': tf_parse_field %a, Python float() bits %016llx", texts[i], got[i], want);
+        i++;
+    }
+    fclose(f);
+    assert_int_equal(i, n);
+}
+
 int main(void)
 {
     c_locale = newlocale(LC_ALL_MASK, "C", (locale_t)0);
@@ -197,6 +369,9 @@ int main(void)
         cmocka_unit_test(test_numparse_random_short_vs_strtod),
         cmocka_unit_test(test_numparse_decimal_comma),
         cmocka_unit_test(test_numparse_long_input),
+        cmocka_unit_test(test_numparse_field_shapes),
+        cmocka_unit_test(test_numparse_field_random_vs_strtod),
+        cmocka_unit_test(test_numparse_field_vs_python),
     };
     int r = cmocka_run_group_tests(tests, NULL, NULL);
     freelocale(c_locale);
