@@ -350,32 +350,63 @@ static int pencil_start(tf_dsfit_workspace *w, const float *x, size_t n, int ord
     return 0;
 }
 
-/* Linear least squares of the amplitudes for fixed (a, w) (per-sample units). The
- * sums are named scalars: an array of regressors per sample made the compiler spill
- * and reload them through the stack on every sample. */
+/* Two samples at a time: lane 0 holds sample k, lane 1 sample k + 1, both advanced by
+ * z^2 (GCC/Clang vector extension: SSE2 on x86-64, NEON on arm64). */
+typedef double v2d __attribute__((vector_size(16)));
+
+static inline double hsum(v2d v)
+{
+    double d[2];
+    memcpy(d, &v, sizeof d);
+    return d[0] + d[1];
+}
+
+/* Linear least squares of the amplitudes for fixed (a, w) (per-sample units); the
+ * sums two samples at a time. */
 static int linear_amplitudes(const float *x, size_t n, size_t p, double a, double wv, double *c)
 {
-    double s_rr = 0, s_ri = 0, s_ii = 0, s_r = 0, s_i = 0, b_r = 0, b_i = 0, b_1 = 0;
+    const v2d zero = {0.0, 0.0};
+    v2d v_rr = zero, v_ri = zero, v_ii = zero, v_r = zero, v_i = zero, v_br = zero;
+    v2d v_bi = zero, v_b1 = zero;
+    double t[8] = {0};
     const double ea = exp(-a), zr = ea * cos(wv), zi = ea * sin(wv);
+    const double z2r = zr * zr - zi * zi, z2i = 2.0 * zr * zi;
+    const v2d Z2r = {z2r, z2r}, Z2i = {z2i, z2i};
     for (size_t k0 = 0; k0 < n; k0 += RESYNC) {
         const size_t k1 = k0 + RESYNC < n ? k0 + RESYNC : n;
         const double e = exp(-a * (double)k0);
-        double pr = k0 ? e * cos(wv * (double)k0) : 1.0, pi = k0 ? e * sin(wv * (double)k0) : 0.0;
-        for (size_t k = k0; k < k1; k++) {
-            const double xk = x[k];
-            s_rr += pr * pr;
-            s_ri += pr * pi;
-            s_ii += pi * pi;
-            s_r += pr;
-            s_i += pi;
-            b_r += pr * xk;
-            b_i += pi * xk;
-            b_1 += xk;
-            const double t0 = pr * zr - pi * zi;
-            pi = pr * zi + pi * zr;
+        const double p0r = k0 ? e * cos(wv * (double)k0) : 1.0;
+        const double p0i = k0 ? e * sin(wv * (double)k0) : 0.0;
+        v2d pr = {p0r, p0r * zr - p0i * zi}, pi = {p0i, p0r * zi + p0i * zr};
+        size_t k = k0;
+        for (; k + 1 < k1; k += 2) {
+            const v2d xk = {(double)x[k], (double)x[k + 1]};
+            v_rr += pr * pr;
+            v_ri += pr * pi;
+            v_ii += pi * pi;
+            v_r += pr;
+            v_i += pi;
+            v_br += pr * xk;
+            v_bi += pi * xk;
+            v_b1 += xk;
+            const v2d t0 = pr * Z2r - pi * Z2i;
+            pi = pr * Z2i + pi * Z2r;
             pr = t0;
         }
+        if (k < k1) { /* odd sample at the block's end: lane 0 */
+            double d[2], f[2];
+            memcpy(d, &pr, sizeof d);
+            memcpy(f, &pi, sizeof f);
+            const double xk = x[k];
+            const double v[8] = {d[0] * d[0], d[0] * f[0], f[0] * f[0], d[0], f[0],
+                                 d[0] * xk, f[0] * xk, xk};
+            for (int q = 0; q < 8; q++)
+                t[q] += v[q];
+        }
     }
+    const double s_rr = hsum(v_rr) + t[0], s_ri = hsum(v_ri) + t[1], s_ii = hsum(v_ii) + t[2];
+    const double s_r = hsum(v_r) + t[3], s_i = hsum(v_i) + t[4], b_r = hsum(v_br) + t[5];
+    const double b_i = hsum(v_bi) + t[6], b_1 = hsum(v_b1) + t[7];
     const size_t q = p - 2;
     double G[9] = {s_rr, s_ri, s_r, s_ri, s_ii, s_i, s_r, s_i, (double)n};
     double b[3] = {b_r, b_i, b_1};
@@ -501,17 +532,6 @@ typedef struct stretch_sums {
     double rss;
     size_t count;
 } stretch_sums;
-
-/* Two samples at a time: lane 0 holds sample k, lane 1 sample k + 1, both advanced by
- * z^2 (GCC/Clang vector extension: SSE2 on x86-64, NEON on arm64). */
-typedef double v2d __attribute__((vector_size(16)));
-
-static inline double hsum(v2d v)
-{
-    double d[2];
-    memcpy(d, &v, sizeof d);
-    return d[0] + d[1];
-}
 
 /* Samples [k, kend) of a stretch with model constants e1, e2, c0: the sums of
  * stretch_sums, recurrence inside blocks of RESYNC samples, exact at their starts. */
