@@ -734,7 +734,8 @@ static int lm_step(const double *H, const double *g, size_t P, double lambda, do
  * equations: one pass over the data per iteration. */
 /* Standard uncertainties of the first two parameters (per-sample units) from H
  * and the residual variance; 0 when H is singular. */
-static void step_scale(const double *H, size_t P, double rss, size_t n, double *u)
+/* H^-1 into inv (P x P) when not NULL; returns 1 when H could be inverted. */
+static int step_scale(const double *H, size_t P, double rss, size_t n, double *u, double *inv)
 {
     double A[25];
     memcpy(A, H, P * P * sizeof *A);
@@ -742,10 +743,13 @@ static void step_scale(const double *H, size_t P, double rss, size_t n, double *
     u[0] = u[1] = 0.0;
     if (n <= P || gsl_linalg_cholesky_decomp1(&Am.matrix) != GSL_SUCCESS ||
         gsl_linalg_cholesky_invert(&Am.matrix) != GSL_SUCCESS)
-        return;
+        return 0;
     const double s2 = rss / (double)(n - P);
     u[0] = sqrt(s2 * A[0]);
     u[1] = sqrt(s2 * A[P + 1]);
+    if (inv)
+        memcpy(inv, A, P * P * sizeof *A);
+    return 1;
 }
 
 /* Levenberg-Marquardt (Levenberg 1944, Marquardt 1963) on the streamed normal
@@ -754,9 +758,10 @@ static void step_scale(const double *H, size_t P, double rss, size_t n, double *
  * uncertainty; such a last step is applied without another pass (H and the
  * residual change by a negligible second-order amount). */
 static int run_fast(model_ctx *m, double *par, int maxit, int *iters, double *H_out,
-                    double *rss_out, int *conv)
+                    double *rss_out, int *conv, double *inv_out, int *inv_ok)
 {
     *conv = 0;
+    *inv_ok = 0; /* set while inv_out is the inverse of the H handed back */
     const size_t P = m->p;
     double H[25], g[5], Hn[25], gn[5], d[5], trial[5], u[2];
     double rss = accumulate(par, m, H, g), lambda = 1e-4;
@@ -765,7 +770,7 @@ static int run_fast(model_ctx *m, double *par, int maxit, int *iters, double *H_
     for (int it = 0; it < maxit; it++) {
         if (lm_step(H, g, P, lambda, d) != 0)
             return -1;
-        step_scale(H, P, rss, m->n, u);
+        *inv_ok = step_scale(H, P, rss, m->n, u, inv_out);
         const int small = (fabs(d[0]) <= 1e-9 * (fabs(par[0]) + fabs(par[1])) ||
                            fabs(d[0]) <= 0.01 * u[0]) &&
                           (fabs(d[1]) <= 1e-9 * fabs(par[1]) || fabs(d[1]) <= 0.01 * u[1]);
@@ -783,6 +788,7 @@ static int run_fast(model_ctx *m, double *par, int maxit, int *iters, double *H_
             memcpy(par, trial, P * sizeof *par);
             memcpy(H, Hn, sizeof H);
             memcpy(g, gn, sizeof g);
+            *inv_ok = 0;
             rss = rn;
             lambda = fmax(lambda * 0.1, 1e-12);
         } else {
@@ -819,7 +825,8 @@ static tf_status fit_core(int use_gsl, tf_dsfit_workspace *w, const float *x, si
                                (o->drop_c_f > 0 || o->drop_l_h > 0);
     const int maxit = o && o->max_iter > 0 ? o->max_iter : 50;
     const size_t p = offset ? 5 : 4;
-    double par[5] = {0}, H[25], rss = NAN;
+    double par[5] = {0}, H[25], rss = NAN, Hinv[25];
+    int inv_ok = 0; /* Hinv is H^-1 (run_fast's last one: no second inversion) */
     if (start) {
         par[0] = start[0];
         par[1] = start[1];
@@ -838,16 +845,23 @@ static tf_status fit_core(int use_gsl, tf_dsfit_workspace *w, const float *x, si
     model_ctx m = {x, n, p, NULL, NULL, 0, 0.0};
     int iters = 0;
     if ((use_gsl ? run_lm(ws, &m, par, maxit, &iters)
-                 : run_fast(&m, par, maxit, &iters, H, &rss, &conv_plain)) != 0)
+                 : run_fast(&m, par, maxit, &iters, H, &rss, &conv_plain, Hinv, &inv_ok)) != 0)
         return tf_error_set(err, TF_ERR_NUMERIC, "damped-sine fit did not converge");
     {
         /* the plain fit, kept whatever follows */
         double g[5], Hc[25];
         memcpy(Hc, H, sizeof Hc);
-        if (use_gsl || !isfinite(rss))
-            rss = accumulate(par, &m, Hc, g);
         double u[2];
-        step_scale(Hc, p, rss, n, u);
+        if (use_gsl || !isfinite(rss)) {
+            rss = accumulate(par, &m, Hc, g);
+            inv_ok = 0;
+        }
+        if (inv_ok) {
+            const double s2 = rss / (double)(n - p);
+            u[0] = sqrt(s2 * Hinv[0]);
+            u[1] = sqrt(s2 * Hinv[p + 1]);
+        } else
+            step_scale(Hc, p, rss, n, u, NULL);
         out->raw_alpha_per_s = par[0] / dt_s;
         out->raw_wd_rad_s = par[1] / dt_s;
         out->raw_u_alpha_per_s = u[0] / dt_s;
@@ -890,7 +904,8 @@ static tf_status fit_core(int use_gsl, tf_dsfit_workspace *w, const float *x, si
                     par[0] += par[1] / M_PI * log(1.0 - rel);
             }
             if ((use_gsl ? run_lm(ws, &m, par, maxit, &iters)
-                         : run_fast(&m, par, maxit, &iters, H, &rss, &conv_drop)) != 0)
+                         : run_fast(&m, par, maxit, &iters, H, &rss, &conv_drop, Hinv,
+                                    &inv_ok)) != 0)
                 return tf_error_set(err, TF_ERR_NUMERIC, "drop-corrected fit did not converge");
         }
         out->ncross = m.ncross;
@@ -902,12 +917,14 @@ static tf_status fit_core(int use_gsl, tf_dsfit_workspace *w, const float *x, si
     if (use_gsl || !isfinite(rss)) {
         double g[5];
         rss = accumulate(par, &m, H, g);
+        inv_ok = 0;
     }
     gsl_matrix *cov = w->covar[p == 5];
     for (size_t r = 0; r < p; r++)
         for (size_t c = 0; c < p; c++)
-            gsl_matrix_set(cov, r, c, H[r * p + c]);
-    if (gsl_linalg_cholesky_decomp1(cov) != GSL_SUCCESS || gsl_linalg_cholesky_invert(cov) != GSL_SUCCESS)
+            gsl_matrix_set(cov, r, c, inv_ok ? Hinv[r * p + c] : H[r * p + c]);
+    if (!inv_ok && (gsl_linalg_cholesky_decomp1(cov) != GSL_SUCCESS ||
+                    gsl_linalg_cholesky_invert(cov) != GSL_SUCCESS))
         return tf_error_set(err, TF_ERR_NUMERIC, "damped-sine fit: singular normal equations");
     const double s2 = n > p ? rss / (double)(n - p) : NAN;
     out->alpha_per_s = par[0] / dt_s;
