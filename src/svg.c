@@ -217,6 +217,58 @@ static double clampy(const tf_svg *s, double py)
     return py < s->top ? s->top : py > s->bottom ? s->bottom : py;
 }
 
+/* First index in [k, i1) whose time t0 + k dt is not before xe (i1 when none): the
+ * times grow with k, so a guess from the division is moved to the exact boundary. */
+static size_t column_end(size_t k, size_t i1, double t0, double dt, double xe)
+{
+    if (k >= i1 || !(t0 + (double)k * dt < xe))
+        return k < i1 ? k : i1;
+    double g = ceil((xe - t0) / dt);
+    size_t e = g <= (double)k ? k + 1 : g >= (double)i1 ? i1 : (size_t)g;
+    while (e > k + 1 && !(t0 + (double)(e - 1) * dt < xe))
+        e--;
+    while (e < i1 && t0 + (double)e * dt < xe)
+        e++;
+    return e;
+}
+
+/* Indices of the first smallest and the first largest of y[a..b) (b > a): the values by
+ * an eight-lane pass the compiler vectorises, then the first index holding each. A NAN
+ * in the first place is kept as both, as a plain scan keeping strict improvements would. */
+static void column_extremes(const float *y, size_t a, size_t b, size_t *ilo, size_t *ihi)
+{
+    *ilo = *ihi = a;
+    if (isnan(y[a]))
+        return;
+    float mn[8], mx[8];
+    for (int j = 0; j < 8; j++)
+        mn[j] = mx[j] = y[a];
+    size_t k = a + 1;
+    for (; k + 8 <= b; k += 8)
+        for (int j = 0; j < 8; j++) {
+            const float v = y[k + j];
+            mn[j] = v < mn[j] ? v : mn[j];
+            mx[j] = v > mx[j] ? v : mx[j];
+        }
+    for (; k < b; k++) {
+        mn[0] = y[k] < mn[0] ? y[k] : mn[0];
+        mx[0] = y[k] > mx[0] ? y[k] : mx[0];
+    }
+    float lo = mn[0], hi = mx[0];
+    for (int j = 1; j < 8; j++) {
+        lo = mn[j] < lo ? mn[j] : lo;
+        hi = mx[j] > hi ? mx[j] : hi;
+    }
+    size_t i = a;
+    while (!(y[i] == lo))
+        i++;
+    *ilo = i;
+    i = a;
+    while (!(y[i] == hi))
+        i++;
+    *ihi = i;
+}
+
 void tf_svg_trace(tf_svg *s, const float *y, size_t n, double t0, double dt,
                   const char *stroke, double width)
 {
@@ -243,20 +295,12 @@ void tf_svg_trace(tf_svg *s, const float *y, size_t n, double t0, double dt,
         int first = 1;
         for (int c = 0; c < cols && k < i1; c++) {
             double xe = s->x0 + (s->x1 - s->x0) * (c + 1) / cols;
-            float lo = y[k], hi = y[k];
-            size_t ilo = k, ihi = k;
-            k++; /* every column takes at least its first sample */
-            while (k < i1 && t0 + (double)k * dt < xe) {
-                if (y[k] < lo) {
-                    lo = y[k];
-                    ilo = k;
-                }
-                if (y[k] > hi) {
-                    hi = y[k];
-                    ihi = k;
-                }
-                k++;
-            }
+            /* every column takes at least its first sample, then those before xe */
+            const size_t end = column_end(k + 1, i1, t0, dt, xe);
+            size_t ilo, ihi;
+            column_extremes(y, k, end, &ilo, &ihi);
+            const float lo = y[ilo], hi = y[ihi];
+            k = end;
             double px = s->left + c + 0.5;
             /* keep the order in time so the path does not zig-zag backwards */
             double ya = ilo <= ihi ? lo : hi, yb = ilo <= ihi ? hi : lo;

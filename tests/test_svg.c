@@ -91,6 +91,49 @@ static void test_svg_decimation_keeps_spikes(void **state)
     free(y);
 }
 
+/* Within a pixel column the minimum and the maximum are drawn in the order they occur,
+ * so the path does not run backwards in time; where the extreme value occurs twice the
+ * first occurrence decides (common practice for min/max decimation). */
+static void test_svg_decimation_order(void **state)
+{
+    (void)state;
+    const size_t n = 90000;
+    float *y = calloc(n, sizeof *y);
+    assert_non_null(y);
+    tf_svg *s = tf_svg_create(900, 300, "order");
+    tf_svg_axes ax = {0, (double)(n - 1), -2, 2, "time", "s", "y", "", 0};
+    assert_int_equal(tf_svg_axes_draw(s, &ax), 0);
+    const int cols = (int)ceil(tf_svg_px(s, ax.x1) - tf_svg_px(s, ax.x0));
+    const double w = (double)(n - 1) / cols;
+    for (int c = 0; c < cols; c++) {
+        /* even columns: the maximum first (and again at the end); odd: the minimum */
+        const float first = c % 2 ? -1.0f : 1.0f;
+        y[(size_t)((c + 0.25) * w)] = first;
+        y[(size_t)((c + 0.5) * w)] = -first;
+        y[(size_t)((c + 0.8) * w)] = first;
+    }
+    tf_svg_trace(s, y, n, 0, 1, "#000", 1);
+    const char *text = tf_svg_finish(s, NULL);
+    const char *p = strstr(strstr(text, "<path fill=\"none\""), " d=\"") + 4;
+    int c = 0;
+    while (*p && *p != '"') {
+        char *end;
+        strtod(p + 1, &end);
+        const double ya = strtod(end, &end);
+        assert_true(*end == 'L');
+        strtod(end + 1, &end);
+        const double yb = strtod(end, &end);
+        const double want = tf_svg_py(s, c % 2 ? -1.0 : 1.0);
+        assert_true(fabs(ya - want) < 0.06);
+        assert_true(fabs(yb - tf_svg_py(s, c % 2 ? 1.0 : -1.0)) < 0.06);
+        c++;
+        p = end;
+    }
+    assert_int_equal(c, cols);
+    tf_svg_destroy(s);
+    free(y);
+}
+
 /* Few samples: each is drawn as it is. */
 static void test_svg_short_trace(void **state)
 {
@@ -168,6 +211,7 @@ int main(void)
         cmocka_unit_test(test_svg_escape),
         cmocka_unit_test(test_svg_decimation_keeps_spikes),
         cmocka_unit_test(test_svg_short_trace),
+        cmocka_unit_test(test_svg_decimation_order),
         cmocka_unit_test(test_svg_axis_prefix),
         cmocka_unit_test(test_svg_well_formed),
     };
