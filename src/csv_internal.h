@@ -2,9 +2,14 @@
 #ifndef TF_CSV_INTERNAL_H
 #define TF_CSV_INTERNAL_H
 
+#include <float.h>
+#include <math.h>
 #include <stddef.h>
+#include <stdint.h>
 #include <sys/types.h>
 #include <tankfit/import.h>
+
+#include "numparse.h"
 
 /* Longest field (and line, for the first lines looked at) accepted: a bad file
  * such as a 1 GB single line costs at most this much memory per parser. */
@@ -92,11 +97,48 @@ void tf_csv_scan_number(const char *s, size_t len, char decimal, tf_num_text *nt
  * in the last of those digits if that is coarser. Zero has resolution 0. */
 double tf_csv_resolution(const tf_num_text *nt, int sig_digits);
 
+/* 10^k: k within -40 .. 40 from a table of literals (correctly rounded), else pow(). */
+extern const double tf_csv_pow10_table[81];
+double tf_csv_pow10_far(long k);
+static inline double tf_csv_pow10(long k)
+{
+    return k >= -40 && k <= 40 ? tf_csv_pow10_table[k + 40] : tf_csv_pow10_far(k);
+}
+
+/* Decimal digits of m, 1 <= m < 10^19: from the bit length, then one compare
+ * (1233 / 4096 ~ log10(2), so g is the digit count or one less). */
+static inline long tf_csv_digits10(uint64_t m)
+{
+    static const uint64_t p10[20] = {1ull, 10ull, 100ull, 1000ull, 10000ull, 100000ull,
+        1000000ull, 10000000ull, 100000000ull, 1000000000ull, 10000000000ull,
+        100000000000ull, 1000000000000ull, 10000000000000ull, 100000000000000ull,
+        1000000000000000ull, 10000000000000000ull, 100000000000000000ull,
+        1000000000000000000ull, 10000000000000000000ull};
+    long g = ((64 - __builtin_clzll(m)) * 1233) >> 12;
+    return g + (m >= p10[g]);
+}
+
+/* tf_csv_time_value for any text (two passes). */
+int tf_csv_time_value_general(const char *s, size_t len, char decimal, int sig_digits,
+                              double *value, double *q);
+
 /* A time field: its value (correctly rounded, as tf_parse_field) and its
  * resolution (as tf_csv_resolution) in one pass. Returns 0, or -1 when the
- * field is not one number. */
-int tf_csv_time_value(const char *s, size_t len, char decimal, int sig_digits, double *value,
-                      double *q);
+ * field is not one number. Inline: it runs once per row. */
+static inline int tf_csv_time_value(const char *s, size_t len, char decimal, int sig_digits,
+                                    double *value, double *q)
+{
+    tf_short_dec d;
+    if (FLT_EVAL_METHOD != 0 || tf_scan_short(s, len, decimal, &d) != 0 || d.m == 0)
+        return tf_csv_time_value_general(s, len, decimal, sig_digits, value, q);
+    *value = tf_short_value(&d); /* Clinger's fast path, as tf_parse_field */
+    /* the lead digit of m sits at e + digits(m) - 1, its last at e */
+    long last = d.e, lead = d.e + tf_csv_digits10(d.m) - 1;
+    if (sig_digits > 0 && lead - sig_digits + 1 < last)
+        last = lead - sig_digits + 1;
+    *q = tf_csv_pow10(last);
+    return 0;
+}
 
 /* Significant digits printed (0 for zero). */
 int tf_csv_sig_digits(const tf_num_text *nt);
@@ -134,11 +176,82 @@ tf_status tf_time_acc_init(tf_time_acc *a, double t_ref, double d_ref, size_t ma
                            tf_error *err);
 void tf_time_acc_free(tf_time_acc *a);
 
+/* Largest deviation of one step from the uniform step that rounding to the
+ * printed digits can explain: each value is within q/2 of the true time, so a
+ * step is within (q_a + q_b)/2; 1.5x that leaves room for the reference step's
+ * own small error (q is never below a few ulps of the value itself). */
+static inline double tf_time_step_tolerance(double qa, double qb)
+{
+    return 0.75 * (qa + qb);
+}
+
+enum { TF_TIME_NOT_LATER, TF_TIME_BAD_STEP, TF_TIME_TOO_MANY };
+
+/* Write the message of tf_time_acc_add's failure why into msg; returns -1. */
+int tf_time_acc_fail(const tf_time_acc *a, int why, double t, double d, double tol, char *msg,
+                     size_t msg_size);
+
 /* Add the value t printed as text (resolution q) from line. Returns 0, or -1
  * after writing "expected ..., found ..." (without position) into msg when the
- * step from the previous value is not the uniform step. */
-int tf_time_acc_add(tf_time_acc *a, double t, double q, size_t line, char *msg,
-                    size_t msg_size);
+ * step from the previous value is not the uniform step. Inline: it runs once
+ * per row. */
+static inline int tf_time_acc_add(tf_time_acc *a, double t, double q, size_t line, char *msg,
+                                  size_t msg_size)
+{
+    size_t k = a->n;
+    /* no finer than the double itself, nor than the first time: a generator's
+     * t0 + k*dt keeps the rounding of t0 even where it passes zero */
+    double floor_q = 4.0 * DBL_EPSILON * (fabs(t) + a->t_scale);
+    if (q < floor_q)
+        q = floor_q;
+    if (k == 0) {
+        a->t_first = t;
+        a->q_first = q;
+        a->line_first = line;
+        a->q_max = a->q_min = q;
+    } else {
+        double d = t - a->t_prev;
+        double tol = tf_time_step_tolerance(q, a->q_prev);
+        if (k == 1 && a->d_ref == 0 && d > 0)
+            a->d_ref = d; /* no reference from the head: the first step is it */
+        if (!(d > 0))
+            return tf_time_acc_fail(a, TF_TIME_NOT_LATER, t, d, tol, msg, msg_size);
+        if (fabs(d - a->d_ref) > tol)
+            return tf_time_acc_fail(a, TF_TIME_BAD_STEP, t, d, tol, msg, msg_size);
+        if (q > a->q_max)
+            a->q_max = q;
+        if (q < a->q_min)
+            a->q_min = q;
+    }
+    double u = t - (a->t_first + (double)k * a->d_ref);
+    a->sum_u += u;
+    a->sum_ku += (double)k * u;
+    size_t b = k / TF_TIME_BLOCK;
+    if (b >= a->cap_blocks) /* cannot happen when max_rows was honest */
+        return tf_time_acc_fail(a, TF_TIME_TOO_MANY, t, 0, 0, msg, msg_size);
+    if (b == a->nblocks) {
+        tf_time_block *nb = &a->blocks[a->nblocks++];
+        nb->hi = -HUGE_VAL;
+        nb->lo = HUGE_VAL;
+    }
+    tf_time_block *blk = &a->blocks[b];
+    if (u - 0.5 * q > blk->hi) {
+        blk->hi = u - 0.5 * q;
+        blk->hi_t = t;
+        blk->hi_line = line;
+        blk->hi_k = k;
+    }
+    if (u + 0.5 * q < blk->lo) {
+        blk->lo = u + 0.5 * q;
+        blk->lo_t = t;
+        blk->lo_line = line;
+        blk->lo_k = k;
+    }
+    a->t_prev = t;
+    a->q_prev = q;
+    a->n++;
+    return 0;
+}
 
 /* Combine the accumulators of consecutive parts (in file order), check the step across part boundaries and every
  * residual of the least-squares line against the printing resolution, and set

@@ -8,11 +8,10 @@
 #include <stdlib.h>
 #include <string.h>
 
-static double pow10i(long k)
+const double tf_csv_pow10_table[81] = {1e-40, 1e-39, 1e-38, 1e-37, 1e-36, 1e-35, 1e-34, 1e-33, 1e-32, 1e-31, 1e-30, 1e-29, 1e-28, 1e-27, 1e-26, 1e-25, 1e-24, 1e-23, 1e-22, 1e-21, 1e-20, 1e-19, 1e-18, 1e-17, 1e-16, 1e-15, 1e-14, 1e-13, 1e-12, 1e-11, 1e-10, 1e-9, 1e-8, 1e-7, 1e-6, 1e-5, 1e-4, 1e-3, 1e-2, 1e-1, 1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22, 1e23, 1e24, 1e25, 1e26, 1e27, 1e28, 1e29, 1e30, 1e31, 1e32, 1e33, 1e34, 1e35, 1e36, 1e37, 1e38, 1e39, 1e40};
+
+double tf_csv_pow10_far(long k)
 {
-    static const double t[] = {1e-40, 1e-39, 1e-38, 1e-37, 1e-36, 1e-35, 1e-34, 1e-33, 1e-32, 1e-31, 1e-30, 1e-29, 1e-28, 1e-27, 1e-26, 1e-25, 1e-24, 1e-23, 1e-22, 1e-21, 1e-20, 1e-19, 1e-18, 1e-17, 1e-16, 1e-15, 1e-14, 1e-13, 1e-12, 1e-11, 1e-10, 1e-9, 1e-8, 1e-7, 1e-6, 1e-5, 1e-4, 1e-3, 1e-2, 1e-1, 1e0, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10, 1e11, 1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22, 1e23, 1e24, 1e25, 1e26, 1e27, 1e28, 1e29, 1e30, 1e31, 1e32, 1e33, 1e34, 1e35, 1e36, 1e37, 1e38, 1e39, 1e40};
-    if (k >= -40 && k <= 40)
-        return t[k + 40];
     return pow(10.0, (double)k);
 }
 
@@ -62,44 +61,17 @@ double tf_csv_resolution(const tf_num_text *nt, int sig_digits)
     long last = nt->exp - nt->frac; /* exponent of the last printed digit */
     if (sig_digits > 0 && nt->lead - sig_digits + 1 < last)
         last = nt->lead - sig_digits + 1;
-    return pow10i(last);
+    return tf_csv_pow10(last);
 }
 
-/* Decimal digits of m, 1 <= m < 10^19: from the bit length, then one compare. */
-static long digits10(uint64_t m)
+int tf_csv_time_value_general(const char *s, size_t len, char decimal, int sig_digits,
+                              double *value, double *q)
 {
-    static const uint64_t p10[20] = {1ull, 10ull, 100ull, 1000ull, 10000ull, 100000ull,
-        1000000ull, 10000000ull, 100000000ull, 1000000000ull, 10000000000ull,
-        100000000000ull, 1000000000000ull, 10000000000000ull, 100000000000000ull,
-        1000000000000000ull, 10000000000000000ull, 100000000000000000ull,
-        1000000000000000000ull, 10000000000000000000ull};
-    int bits = 64 - __builtin_clzll(m);
-    long g = (bits * 1233) >> 12; /* 1233 / 4096 ~ log10(2): g = digits - 1 or digits */
-    return g + (m >= p10[g]);
-}
-
-int tf_csv_time_value(const char *s, size_t len, char decimal, int sig_digits, double *value,
-                      double *q)
-{
-    /* one pass for the value (Clinger's fast path, as tf_parse_field) and the
-     * printed form; anything unusual goes through the general parser */
-    tf_short_dec d;
-    if (!(FLT_EVAL_METHOD == 0) || tf_scan_short(s, len, decimal, &d) != 0 || d.m == 0) {
-        tf_num_text nt;
-        if (tf_parse_field(s, len, decimal, value) != 0)
-            return -1;
-        tf_csv_scan_number(s, len, decimal, &nt);
-        *q = tf_csv_resolution(&nt, sig_digits);
-        return 0;
-    }
-    double v = (double)d.m;
-    v = d.e < 0 ? v / tf_pow10_exact[-d.e] : v * tf_pow10_exact[d.e];
-    *value = d.neg ? -v : v;
-    /* the lead digit of m sits at e + digits(m) - 1, its last at e */
-    long last = d.e, lead = d.e + digits10(d.m) - 1;
-    if (sig_digits > 0 && lead - sig_digits + 1 < last)
-        last = lead - sig_digits + 1;
-    *q = pow10i(last);
+    tf_num_text nt;
+    if (tf_parse_field(s, len, decimal, value) != 0)
+        return -1;
+    tf_csv_scan_number(s, len, decimal, &nt);
+    *q = tf_csv_resolution(&nt, sig_digits);
     return 0;
 }
 
@@ -128,82 +100,20 @@ void tf_time_acc_free(tf_time_acc *a)
     a->blocks = NULL;
 }
 
-/* Largest deviation of one step from the uniform step that rounding to the
- * printed digits can explain: each value is within q/2 of the true time, so a
- * step is within (q_a + q_b)/2; 1.5x that leaves room for the reference step's
- * own small error (q is never below a few ulps of the value itself). */
-static double step_tolerance(double qa, double qb)
+int tf_time_acc_fail(const tf_time_acc *a, int why, double t, double d, double tol, char *msg,
+                     size_t msg_size)
 {
-    return 0.75 * (qa + qb);
-}
-
-int tf_time_acc_add(tf_time_acc *a, double t, double q, size_t line, char *msg,
-                    size_t msg_size)
-{
-    size_t k = a->n;
-    /* no finer than the double itself, nor than the first time: a generator's
-     * t0 + k*dt keeps the rounding of t0 even where it passes zero */
-    double floor_q = 4.0 * DBL_EPSILON * (fabs(t) + a->t_scale);
-    if (q < floor_q)
-        q = floor_q;
-    if (k == 0) {
-        a->t_first = t;
-        a->q_first = q;
-        a->line_first = line;
-        a->q_max = a->q_min = q;
-    } else {
-        double d = t - a->t_prev;
-        double tol = step_tolerance(q, a->q_prev);
-        if (k == 1 && a->d_ref == 0 && d > 0)
-            a->d_ref = d; /* no reference from the head: the first step is it */
-        if (!(d > 0)) {
-            snprintf(msg, msg_size, "expected a time later than %.10g s, found %.10g s", a->t_prev,
-                     t);
-            return -1;
-        }
-        if (fabs(d - a->d_ref) > tol) {
-            snprintf(msg, msg_size,
-                     "expected a time step of %.6g s (within the printing resolution, %.3g s), "
-                     "found a step of %.6g s (%.10g s after %.10g s)",
-                     a->d_ref, tol, d, t, a->t_prev);
-            return -1;
-        }
-        if (q > a->q_max)
-            a->q_max = q;
-        if (q < a->q_min)
-            a->q_min = q;
-    }
-    double u = t - (a->t_first + (double)k * a->d_ref);
-    a->sum_u += u;
-    a->sum_ku += (double)k * u;
-    size_t b = k / TF_TIME_BLOCK;
-    if (b >= a->cap_blocks) { /* cannot happen when max_rows was honest */
+    if (why == TF_TIME_NOT_LATER)
+        snprintf(msg, msg_size, "expected a time later than %.10g s, found %.10g s", a->t_prev, t);
+    else if (why == TF_TIME_BAD_STEP)
+        snprintf(msg, msg_size,
+                 "expected a time step of %.6g s (within the printing resolution, %.3g s), "
+                 "found a step of %.6g s (%.10g s after %.10g s)",
+                 a->d_ref, tol, d, t, a->t_prev);
+    else
         snprintf(msg, msg_size, "expected at most %zu rows, found more",
                  a->cap_blocks * TF_TIME_BLOCK);
-        return -1;
-    }
-    if (b == a->nblocks) {
-        tf_time_block *nb = &a->blocks[a->nblocks++];
-        nb->hi = -HUGE_VAL;
-        nb->lo = HUGE_VAL;
-    }
-    tf_time_block *blk = &a->blocks[b];
-    if (u - 0.5 * q > blk->hi) {
-        blk->hi = u - 0.5 * q;
-        blk->hi_t = t;
-        blk->hi_line = line;
-        blk->hi_k = k;
-    }
-    if (u + 0.5 * q < blk->lo) {
-        blk->lo = u + 0.5 * q;
-        blk->lo_t = t;
-        blk->lo_line = line;
-        blk->lo_k = k;
-    }
-    a->t_prev = t;
-    a->q_prev = q;
-    a->n++;
-    return 0;
+    return -1;
 }
 
 /* Check every block of one part against the fitted line alpha + beta*K (in u
@@ -261,7 +171,7 @@ tf_status tf_time_finish(const tf_time_acc *acc, size_t parts, const char *path,
             continue;
         if (prev) { /* the step across the boundary between two parser threads */
             double d = a->t_first - prev->t_prev;
-            double tol = step_tolerance(a->q_first, prev->q_prev);
+            double tol = tf_time_step_tolerance(a->q_first, prev->q_prev);
             if (!(d > 0) || fabs(d - D) > tol)
                 return tf_error_set(err, TF_ERR_DATA,
                                     "%s:%zu:%zu: expected a time step of %.6g s (within the "

@@ -123,6 +123,14 @@ static inline int tf_scan_short(const char *s, size_t len, char decimal, tf_shor
     return 0;
 }
 
+/* The fast path's value of d: m * 10^e in one IEEE operation (exact operands). */
+static inline double tf_short_value(const tf_short_dec *d)
+{
+    double v = (double)d->m; /* exact: m < 10^15 < 2^53 */
+    v = d->e < 0 ? v / tf_pow10_exact[-d->e] : v * tf_pow10_exact[d->e];
+    return d->neg ? -v : v;
+}
+
 /* The whole field s[0..len) as a number: returns 0 and the correctly rounded
  * value, or -1 when the field is not exactly one number. Inline fast path
  * (Clinger 1990: at most 15 digits, |exponent| <= 22, one IEEE operation) for
@@ -132,9 +140,7 @@ static inline int tf_parse_field(const char *s, size_t len, char decimal, double
 #if defined(FLT_EVAL_METHOD) && FLT_EVAL_METHOD == 0
     tf_short_dec d;
     if (tf_scan_short(s, len, decimal, &d) == 0) {
-        double v = (double)d.m; /* exact: m < 10^15 < 2^53 */
-        v = d.e < 0 ? v / tf_pow10_exact[-d.e] : v * tf_pow10_exact[d.e];
-        *value = d.neg ? -v : v;
+        *value = tf_short_value(&d);
         return 0;
     }
 #endif
