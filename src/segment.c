@@ -154,11 +154,19 @@ static int refine_chain(const seg_input *in, seg_run *r, size_t j, size_t q, dou
     for (size_t p = j; p <= q; p++)
         nfull += !((p == q && r[q].k_end == SEG_B_EDGE) || r[p].pk < 8 * in->band);
     /* a chain of 20-sample periods still fits: 5 samples a lobe and 16 in all (checked
-     * by seg_chain_fit) pin a damped sine of known shape */
-    if (!nfull || hi > 1.2 * lo || r[j].i1 < r[j].i0 + 4) {
+     * by seg_chain_fit) pin a damped sine of known shape. A chain of faint lobes only
+     * (the rest of a ring-down after a chain cut at its length limit) keeps the last
+     * chain's w and decay and fits its start and amplitudes */
+    int faint = !nfull && prior[0] > 0 && r[j].k_start == SEG_B_DIRECT;
+    if ((!nfull && !faint) || (nfull && hi > 1.2 * lo) || r[j].i1 < r[j].i0 + 4) {
         return 0;
     }
-    med /= (double)nfull;
+    if (faint) {
+        med = M_PI / prior[0];
+        ts_only = 1;
+    } else {
+        med /= (double)nfull;
+    }
     double ts = r[j].t_start, w = M_PI / med, a = 0, amp[64];
     /* the tank changes slowly: the last chain's w and decay are the better priors */
     if (prior[0] > 0 && fabs(prior[0] - w) < 0.03 * w) {
@@ -224,8 +232,11 @@ static void *chain_worker(void *arg)
     seg_run *r = c->r;
     double prior[2] = {0, 0};
     unsigned since_full = SEG_FULL_EVERY;
+    size_t resume = SIZE_MAX; /* a chain cut at its length limit goes on from here */
     for (size_t j = c->from; j < c->to; j++) {
-        if (!is_zero_kind(r[j].k_start))
+        /* the piece after a cut chain starts at a zero the chain shares: a chain of
+         * its own (a ring-down of more than 64 lobes) */
+        if (!is_zero_kind(r[j].k_start) && j != resume)
             continue;
         size_t q = j;
         /* a ring-down's tail fades into the noise: the chain runs on while its lobes
@@ -243,8 +254,11 @@ static void *chain_worker(void *arg)
         if (!ok && quick)
             ok = refine_chain(c->in, r, j, q, prior, (quick = 0));
         since_full = ok && !quick ? 1 : since_full + 1;
-        if (ok)
+        if (ok) {
+            if (q - j + 1 == 64 && r[q].k_end == SEG_B_DIRECT)
+                resume = q + 1;
             j = q;
+        }
     }
     return NULL;
 }
