@@ -197,6 +197,11 @@ static tf_status split_runs(const seg_input *in, const seg_run *r, size_t nr, tf
                 len > 1.15 * M_PI / wpiece)
                 cand[j] = 1;
         }
+    /* a stretch the record's end cuts: its thyristor piece's zero is not in the record,
+     * so only a gate edge inside it can split it (cand 3) */
+    if (bridge && nr > 1 && r[nr - 1].k_start == SEG_B_DIRECT && r[nr - 1].k_end == SEG_B_EDGE &&
+        firing_inside(in, r[nr - 1].t_start, r[nr - 1].t_end) >= 0)
+        cand[nr - 1] = 3;
     /* the tank's w and decay from a few stretches (searched), then every split with
      * them fixed: the shared values steady the split (w alone is known from whole pieces
      * in mixed operation) */
@@ -205,7 +210,7 @@ static tf_status split_runs(const seg_input *in, const seg_run *r, size_t nr, tf
         size_t m = 0;
         double *av = tmp + nr + 1;
         for (size_t j = 0; j < nr && m < 9; j++) {
-            if (!cand[j])
+            if (!cand[j] || cand[j] == 3)
                 continue;
             double w = wpiece, a = 0, s, te = cand[j] == 2 ? r[j + 1].t_end : r[j].t_end;
             if (seg_split_pieces(in->x, (size_t)ceil(r[j].t_start) + 1, (size_t)floor(te) - 1,
@@ -268,6 +273,10 @@ static tf_status split_runs(const seg_input *in, const seg_run *r, size_t nr, tf
             continue;
         }
         double s = -1, w = wsplit, vstep = NAN;
+        if (cand[j] == 3) {
+            s = firing_inside(in, r[j].t_start, r[j].t_end);
+            vstep = voltage_step(in, s);
+        }
         if (cand[j] == 1) {
             /* the gate edge is only known to the sample; the meeting point of the two
              * pieces is finer, so it is used when the two agree */
