@@ -3,6 +3,7 @@
 #include <tankfit/report.h>
 
 #include <math.h>
+#include <pthread.h>
 #include <stdarg.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -355,11 +356,75 @@ static void zoom_window(const tf_report_capture *rc, double *ta, double *tb)
     }
 }
 
+/* One waveform plot (pass 0 the load current, pass 1 the output voltage) over the
+ * samples [i0, i1) of the window [ta, tb]; g stays NULL when the channel is absent. */
+typedef struct wave_job {
+    const tf_report_capture *rc;
+    int overview, pass;
+    double ta, tb;
+    size_t i0, i1;
+    tf_svg *g;
+    int failed;
+} wave_job;
+
+static void *wave_plot(void *arg)
+{
+    wave_job *j = arg;
+    const tf_capture *cap = j->rc->cap;
+    const tf_segment_result *s = j->rc->an->seg;
+    const int pass = j->pass, overview = j->overview;
+    const double ta = j->ta, tb = j->tb;
+    int idx = pass == 0 ? j->rc->an->roles.current : j->rc->an->roles.voltage;
+    if (idx < 0)
+        return NULL;
+    tf_svg *g = tf_svg_create(920, pass == 0 ? 280 : 220,
+                              pass == 0 ? "load current" : "output voltage");
+    if (!g) {
+        j->failed = 1;
+        return NULL;
+    }
+    double lo, hi;
+    chan_range(cap, idx, j->i0, j->i1, &lo, &hi);
+    tf_svg_axes ax = {ta, tb, lo, hi, "time", "s",
+                      pass == 0 ? "load current" : "output voltage",
+                      cap->ch[idx].unit[0] ? cap->ch[idx].unit : "", 0};
+    tf_svg_axes_draw(g, &ax);
+    if (!overview) {
+        for (size_t k = 0; k < s->nlobes; k++) {
+            const tf_lobe *l = &s->lobes[k];
+            if (l->end_s < ta || l->start_s > tb)
+                continue;
+            tf_svg_band(g, l->start_s, l->end_s, lobe_colour(l->device),
+                        tf_device_is_thyristor(l->device) ? 0.22 : 0.18);
+        }
+    }
+    tf_svg_trace(g, cap->ch[idx].samples, cap->n, cap->t0_s, cap->dt_s,
+                 pass == 0 ? C_CURRENT : C_VOLTAGE, 1.4);
+    for (size_t k = 0; k < s->nfirings && !overview; k++)
+        tf_svg_mark(g, s->firings_s[k], C_INK);
+    if (pass == 0 && !overview) {
+        const char *labels[] = {"current", "thyristor lobe", "diode lobe", "firing"};
+        const char *cols[] = {C_CURRENT, C_THYR, C_DIODE, C_INK};
+        tf_svg_legend(g, labels, cols, 4);
+    } else {
+        const char *labels[] = {pass == 0 ? "current" : "output voltage"};
+        const char *cols[] = {pass == 0 ? C_CURRENT : C_VOLTAGE};
+        tf_svg_legend(g, labels, cols, 1);
+    }
+    if (!overview && pass == 0)
+        for (size_t k = 0; k < s->nlobes; k++) {
+            const tf_lobe *l = &s->lobes[k];
+            if (l->start_s < ta || l->end_s > tb || (l->end_s - l->start_s) < (tb - ta) * 0.03)
+                continue;
+            tf_svg_label_top(g, 0.5 * (l->start_s + l->end_s), tf_device_name(l->device));
+        }
+    j->g = g;
+    return NULL;
+}
+
 static void waveform(hbuf *h, const tf_report_capture *rc, int overview)
 {
     const tf_capture *cap = rc->cap;
-    const tf_analysis *an = rc->an;
-    const tf_segment_result *s = an->seg;
     double ta = cap->t0_s, tb = tf_capture_time(cap, cap->n - 1);
     if (!overview)
         zoom_window(rc, &ta, &tb);
@@ -367,54 +432,30 @@ static void waveform(hbuf *h, const tf_report_capture *rc, int overview)
     size_t i1 = (size_t)fmin((double)cap->n, ceil((tb - cap->t0_s) / cap->dt_s) + 1);
     if (i1 <= i0)
         return;
-    int ci = an->roles.current, vi = an->roles.voltage;
-    for (int pass = 0; pass < 2; pass++) {
-        int idx = pass == 0 ? ci : vi;
-        if (idx < 0)
-            continue;
-        tf_svg *g = tf_svg_create(920, pass == 0 ? 280 : 220,
-                                  pass == 0 ? "load current" : "output voltage");
-        if (!g) {
+    wave_job jobs[2];
+    for (int p = 0; p < 2; p++)
+        jobs[p] = (wave_job){rc, overview, p, ta, tb, i0, i1, NULL, 0};
+    /* the two plots of a long window each read every sample of their channel (range and
+     * decimation): the voltage's on a second thread; the text is joined in the same order */
+    pthread_t th;
+    const int threaded = i1 - i0 >= ((size_t)1 << 20) &&
+                         pthread_create(&th, NULL, wave_plot, &jobs[1]) == 0;
+    wave_plot(&jobs[0]);
+    if (threaded)
+        pthread_join(th, NULL);
+    else
+        wave_plot(&jobs[1]);
+    for (int p = 0; p < 2; p++) {
+        if (jobs[p].failed) {
             h->failed = 1;
+            tf_svg_destroy(jobs[0].g);
+            tf_svg_destroy(jobs[1].g);
             return;
         }
-        double lo, hi;
-        chan_range(cap, idx, i0, i1, &lo, &hi);
-        tf_svg_axes ax = {ta, tb, lo, hi, "time", "s",
-                          pass == 0 ? "load current" : "output voltage",
-                          cap->ch[idx].unit[0] ? cap->ch[idx].unit : "", 0};
-        tf_svg_axes_draw(g, &ax);
-        if (!overview) {
-            for (size_t k = 0; k < s->nlobes; k++) {
-                const tf_lobe *l = &s->lobes[k];
-                if (l->end_s < ta || l->start_s > tb)
-                    continue;
-                tf_svg_band(g, l->start_s, l->end_s, lobe_colour(l->device),
-                            tf_device_is_thyristor(l->device) ? 0.22 : 0.18);
-            }
-        }
-        tf_svg_trace(g, cap->ch[idx].samples, cap->n, cap->t0_s, cap->dt_s,
-                     pass == 0 ? C_CURRENT : C_VOLTAGE, 1.4);
-        for (size_t k = 0; k < s->nfirings && !overview; k++)
-            tf_svg_mark(g, s->firings_s[k], C_INK);
-        if (pass == 0 && !overview) {
-            const char *labels[] = {"current", "thyristor lobe", "diode lobe", "firing"};
-            const char *cols[] = {C_CURRENT, C_THYR, C_DIODE, C_INK};
-            tf_svg_legend(g, labels, cols, 4);
-        } else {
-            const char *labels[] = {pass == 0 ? "current" : "output voltage"};
-            const char *cols[] = {pass == 0 ? C_CURRENT : C_VOLTAGE};
-            tf_svg_legend(g, labels, cols, 1);
-        }
-        if (!overview && pass == 0)
-            for (size_t k = 0; k < s->nlobes; k++) {
-                const tf_lobe *l = &s->lobes[k];
-                if (l->start_s < ta || l->end_s > tb || (l->end_s - l->start_s) < (tb - ta) * 0.03)
-                    continue;
-                tf_svg_label_top(g, 0.5 * (l->start_s + l->end_s), tf_device_name(l->device));
-            }
-        svg_out(h, g);
     }
+    for (int p = 0; p < 2; p++)
+        if (jobs[p].g)
+            svg_out(h, jobs[p].g);
 }
 
 static void turnoff_plot(hbuf *h, const tf_report_capture *rc, const tf_design *d)
