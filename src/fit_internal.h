@@ -48,7 +48,7 @@ tf_status tf_vi_identify(const float *v, const float *i, size_t n, double dt_s,
  * pass over the samples (periods on `threads` threads, totals in period order);
  * r_ohm[q] and u_ohm[q] (from the spread over the periods between the nb >= 2
  * boundary indices) for each skew. */
-#define TF_POWER_MAX_SKEWS 4
+#define TF_POWER_MAX_SKEWS 3
 tf_status tf_power_resistance(const float *v, const float *i, size_t n, double dt_s,
                               const double *skew_s, size_t nsk, const size_t *bounds, size_t nb,
                               int threads, double *r_ohm, double *u_ohm, tf_error *err);

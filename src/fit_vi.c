@@ -436,14 +436,47 @@ typedef struct power_job {
 static void power_one(void *ctx, size_t q)
 {
     const power_job *j = ctx;
-    double pp[TF_POWER_MAX_SKEWS] = {0}, ii = 0;
-    for (size_t k = j->bounds[q]; k < j->bounds[q + 1]; k++) {
-        const double ik = j->i[k];
-        for (size_t s = 0; s < j->nsk; s++)
-            pp[s] += shifted_at(&j->vs[s], k) * ik;
-        ii += ik * ik;
+    const size_t b0 = j->bounds[q], b1 = j->bounds[q + 1];
+    /* named sums for up to three skews (an array of sums was kept in memory) */
+    double p0 = 0, p1 = 0, p2 = 0, ii = 0;
+    const shifted *v0 = &j->vs[0], *v1 = &j->vs[j->nsk > 1 ? 1 : 0], *v2 = &j->vs[j->nsk - 1];
+    long lo = v0->k0, hi = v0->k0;
+    for (size_t s = 1; s < j->nsk; s++) {
+        lo = j->vs[s].k0 < lo ? j->vs[s].k0 : lo;
+        hi = j->vs[s].k0 > hi ? j->vs[s].k0 : hi;
+    }
+    const int inside = b1 > b0 && (long)b0 + lo >= 0 && (long)(b1 - 1) + hi + 1 < (long)j->n;
+    const float *x = j->v;
+    if (inside && j->nsk == 1) {
+        const size_t q0 = (size_t)((long)b0 + v0->k0);
+        const double f = v0->f;
+        for (size_t m = 0; m < b1 - b0; m++) {
+            const double ik = j->i[b0 + m], a = x[q0 + m];
+            p0 += (a + f * ((double)x[q0 + m + 1] - a)) * ik;
+            ii += ik * ik;
+        }
+    } else if (inside) {
+        const size_t q0 = (size_t)((long)b0 + v0->k0), q1 = (size_t)((long)b0 + v1->k0),
+                     q2 = (size_t)((long)b0 + v2->k0);
+        const double f0 = v0->f, f1 = v1->f, f2 = v2->f;
+        for (size_t m = 0; m < b1 - b0; m++) {
+            const double ik = j->i[b0 + m], a0 = x[q0 + m], a1 = x[q1 + m], a2 = x[q2 + m];
+            p0 += (a0 + f0 * ((double)x[q0 + m + 1] - a0)) * ik;
+            p1 += (a1 + f1 * ((double)x[q1 + m + 1] - a1)) * ik;
+            p2 += (a2 + f2 * ((double)x[q2 + m + 1] - a2)) * ik;
+            ii += ik * ik;
+        }
+    } else {
+        for (size_t k = b0; k < b1; k++) {
+            const double ik = j->i[k];
+            p0 += shifted_at(v0, k) * ik;
+            p1 += shifted_at(v1, k) * ik;
+            p2 += shifted_at(v2, k) * ik;
+            ii += ik * ik;
+        }
     }
     double *o = j->sums + q * (j->nsk + 1);
+    const double pp[3] = {p0, p1, p2};
     for (size_t s = 0; s < j->nsk; s++)
         o[s] = pp[s];
     o[j->nsk] = ii;
