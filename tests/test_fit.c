@@ -874,6 +874,20 @@ static void test_fit_power_skews_one_pass(void **state)
     assert_true((r3[1] - r3[0]) * (r3[0] - r3[2]) > 0);
     assert_int_equal(tf_power_resistance(v, i, cap->n, cap->dt_s, sk, 0, bnd, nbnd, 1, r3, u3, &e),
                      TF_ERR_USAGE);
+    /* periods at the record's ends, where the delayed voltage is clamped: the same sums
+     * as reading every sample through tf_fit_interp (the method's definition) */
+    const size_t ends[3] = {0, bnd[1], cap->n};
+    const double late[2] = {-2.5 * cap->dt_s, 3.25 * cap->dt_s};
+    for (int q = 0; q < 2; q++) {
+        double r, u, pv = 0, ii = 0;
+        assert_int_equal(tf_power_resistance(v, i, cap->n, cap->dt_s, &late[q], 1, ends, 3, 2, &r,
+                                             &u, &e), TF_OK);
+        for (size_t k = 0; k < cap->n; k++) {
+            pv += tf_fit_interp(v, cap->n, (double)k + late[q] / cap->dt_s) * i[k];
+            ii += (double)i[k] * i[k];
+        }
+        assert_true(tf_test_reldiff(r, pv / ii) < 1e-12);
+    }
     fit_synth_free(cap, seg, &tr);
 }
 
