@@ -41,12 +41,19 @@ typedef struct csv_job {
     atomic_int abort;                    /* the first part failed: later parts may stop */
 } csv_job;
 
+/* One file column as on_field's fast path sees it: one load finds all. */
+struct fast_col {
+    int map;                             /* as csv_job.map */
+    double factor;                       /* the channel's unit factor */
+    float *dst;                          /* the channel's samples from this part's first row */
+};
+
 typedef struct csv_worker {
     csv_job *job;
     /* copies of what every field needs, kept next to the row state */
     const int *map;
     float **out;
-    float **dst;                         /* per channel: out[m] + base (this part's rows) */
+    struct fast_col *fc;                 /* per file column: what on_field's fast path needs */
     const double *factor;
     size_t ncols;
     int space_mode;
@@ -213,12 +220,13 @@ static void on_field(void *data, size_t len, void *ctx)
      * plain number in range; everything else (and every error) goes the long way */
     size_t c = w->col;
     if (!w->halt && len != 0 && c < w->ncols && w->row < w->cap) {
-        int m = w->map[c];
+        const struct fast_col *fc = &w->fc[c];
+        int m = fc->map;
         double v;
         if (m >= 0 && tf_parse_field(s, len, w->decimal, &v) == 0) {
-            v *= w->factor[m];
+            v *= fc->factor;
             if (fabs(v) <= FLT_MAX) { /* false for NaN and infinities too */
-                w->dst[m][w->row] = (float)v;
+                fc->dst[w->row] = (float)v;
                 w->col = c + 1;
                 return;
             }
@@ -620,13 +628,17 @@ static tf_status run_parse(const tf_csv_source *src, const tf_csv_layout *lay, c
         w[i].time_factor = lay->time_col >= 0 ? lay->cols[lay->time_col].factor : 1;
         w[i].comment = lay->comment ? lay->comment : '#';
         w[i].gaps = calloc(2 * (job->nout ? job->nout : 1), sizeof(size_t));
-        w[i].dst = malloc((job->nout ? job->nout : 1) * sizeof *w[i].dst);
-        if (!w[i].gaps || !w[i].dst)
+        w[i].fc = malloc(lay->ncols * sizeof *w[i].fc);
+        if (!w[i].gaps || !w[i].fc)
             st = tf_error_set(err, TF_ERR_NOMEM, "out of memory");
         else
             w[i].gap_line = w[i].gaps + job->nout;
-        for (size_t m = 0; m < job->nout && st == TF_OK; m++)
-            w[i].dst[m] = out[m] + w[i].base;
+        for (size_t c = 0; c < lay->ncols && st == TF_OK; c++) {
+            int m = job->map[c];
+            w[i].fc[c].map = m;
+            w[i].fc[c].factor = m >= 0 ? job->factor[m] : 1;
+            w[i].fc[c].dst = m >= 0 ? out[m] + w[i].base : NULL;
+        }
         if (st == TF_OK && lay->time_col >= 0)
             st = tf_time_acc_init(&w[i].time, lay->t_ref, lay->d_ref, w[i].cap, err);
     }
@@ -789,7 +801,7 @@ static tf_status import_source(const tf_csv_source *src, const tf_import_options
         st = tf_import_apply_options(cap, opt, err);
     for (size_t i = 0; i < nw; i++) {
         free(w[i].gaps);
-        free(w[i].dst);
+        free(w[i].fc);
         tf_time_acc_free(&w[i].time);
     }
     free(map);

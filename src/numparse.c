@@ -179,3 +179,60 @@ int tf_parse_double(const char *s, size_t len, char decimal, double *value, cons
     }
     return parse_slow(s, i, decimal, value);
 }
+
+/* tf_scan_short for the texts its inline part does not take (see numparse.h). */
+int tf_scan_short_rest(const char *p, const char *end, char decimal, tf_short_dec *d)
+{
+    const char *d0 = p;
+    uint64_t m = 0; /* modulo 2^64: more than 15 digits are refused below */
+    while (p < end && (unsigned)(*p - '0') < 10)
+        m = m * 10 + (uint64_t)(*p++ - '0');
+    size_t nd = (size_t)(p - d0);
+    long e = 0;
+    if (p < end && *p == decimal) {
+        const char *f0 = ++p;
+#if TF_SWAR_DIGITS
+        static const uint64_t p10[9] = {1, 10, 100, 1000, 10000, 100000, 1000000, 10000000,
+                                        100000000};
+        uint64_t v;
+        unsigned k = 8;
+        while (k == 8 && end - p >= 8) {
+            k = tf_swar_digits(p, &v);
+            m = m * p10[k] + v;
+            p += k;
+        }
+        if (k == 8)
+#endif
+            while (p < end && (unsigned)(*p - '0') < 10)
+                m = m * 10 + (uint64_t)(*p++ - '0');
+        e = -(long)(p - f0);
+        nd += (size_t)(p - f0);
+    }
+    if (nd - 1 >= 15) /* 0 or more than 15 digits */
+        return -1;
+    if (p < end) {
+        if ((*p != 'e' && *p != 'E') || ++p == end)
+            return -1;
+        int eneg = *p == '-';
+        long x;
+        if (end - p == 3 && (eneg || *p == '+')) { /* e-03, e+02 */
+            unsigned a = (unsigned)(p[1] - '0'), b = (unsigned)(p[2] - '0');
+            if (a >= 10 || b >= 10)
+                return -1;
+            x = (long)(a * 10 + b);
+        } else {
+            p += eneg || *p == '+';
+            const char *x0 = p;
+            for (x = 0; p < end && (unsigned)(*p - '0') < 10 && x < 1000; p++)
+                x = x * 10 + (*p - '0');
+            if (p != end || p == x0)
+                return -1;
+        }
+        e += eneg ? -x : x;
+    }
+    if (e < -22 || e > 22)
+        return -1;
+    d->m = m;
+    d->e = e;
+    return 0;
+}

@@ -55,13 +55,16 @@ static inline unsigned tf_swar_digits(const char *p, uint64_t *value)
 }
 #endif
 
+/* The rest of tf_scan_short for any other text, from p (after the sign) to end. */
+int tf_scan_short_rest(const char *p, const char *end, char decimal, tf_short_dec *d);
+
 /* Read the whole field s[0..len) when it is [sign] digits [mark digits]
  * [e|E [sign] digits] with 1 to 15 digits and a decimal exponent within
  * -22 .. 22 after the fraction is taken out: returns 0 and fills d. Returns -1
  * for anything else (which may still be a number: take tf_parse_double). The
- * shapes a scope prints (`-1.23456e-03`) take the fewest instructions: a short
- * integer part digit by digit, the fraction eight bytes at once, a two-digit
- * exponent without a loop. */
+ * shape a scope prints (`-1.23456e-03`) is read inline from both ends; other
+ * texts take tf_scan_short_rest: a short integer part digit by digit, the
+ * fraction eight bytes at once, a two-digit exponent without a loop. */
 static inline int tf_scan_short(const char *s, size_t len, char decimal, tf_short_dec *d)
 {
     if (len == 0)
@@ -69,58 +72,30 @@ static inline int tf_scan_short(const char *s, size_t len, char decimal, tf_shor
     const char *p = s, *end = s + len;
     d->neg = *p == '-';
     p += d->neg | (*p == '+');
-    const char *d0 = p;
-    uint64_t m = 0; /* modulo 2^64: more than 15 digits are refused below */
-    while (p < end && (unsigned)(*p - '0') < 10)
-        m = m * 10 + (uint64_t)(*p++ - '0');
-    size_t nd = (size_t)(p - d0);
-    long e = 0;
-    if (p < end && *p == decimal) {
-        const char *f0 = ++p;
 #if TF_SWAR_DIGITS
-        static const uint64_t p10[9] = {1, 10, 100, 1000, 10000, 100000, 1000000, 10000000,
-                                        100000000};
+    /* printf's %e with 4 to 8 fraction digits and a two-digit exponent
+     * ("-1.23456e-03"): both ends known from the length, one eight-byte step
+     * for the fraction; the same m and e as the general reading below */
+    if (end - p >= 10 && (end[-4] == 'e' || end[-4] == 'E') &&
+        (end[-3] == '-' || end[-3] == '+') && (unsigned)(*p - '0') < 10 && p[1] == decimal) {
+        static const uint64_t p10e[9] = {1, 10, 100, 1000, 10000, 100000, 1000000, 10000000,
+                                         100000000};
+        unsigned nf = (unsigned)(end - p) - 6, a = (unsigned)(end[-2] - '0'),
+                 b = (unsigned)(end[-1] - '0');
         uint64_t v;
-        unsigned k = 8;
-        while (k == 8 && end - p >= 8) {
-            k = tf_swar_digits(p, &v);
-            m = m * p10[k] + v;
-            p += k;
+        /* nf digits, then the 'e' (no 'e' among the eight bytes when nf is 8) */
+        if (nf <= 8 && a < 10 && b < 10 && tf_swar_digits(p + 2, &v) == nf) {
+            long x = (long)(a * 10 + b);
+            long e = (end[-3] == '-' ? -x : x) - (long)nf;
+            if (e < -22 || e > 22)
+                return -1;
+            d->m = (uint64_t)(*p - '0') * p10e[nf] + v;
+            d->e = e;
+            return 0;
         }
-        if (k == 8)
+    }
 #endif
-            while (p < end && (unsigned)(*p - '0') < 10)
-                m = m * 10 + (uint64_t)(*p++ - '0');
-        e = -(long)(p - f0);
-        nd += (size_t)(p - f0);
-    }
-    if (nd - 1 >= 15) /* 0 or more than 15 digits */
-        return -1;
-    if (p < end) {
-        if ((*p != 'e' && *p != 'E') || ++p == end)
-            return -1;
-        int eneg = *p == '-';
-        long x;
-        if (end - p == 3 && (eneg || *p == '+')) { /* e-03, e+02 */
-            unsigned a = (unsigned)(p[1] - '0'), b = (unsigned)(p[2] - '0');
-            if (a >= 10 || b >= 10)
-                return -1;
-            x = (long)(a * 10 + b);
-        } else {
-            p += eneg || *p == '+';
-            const char *x0 = p;
-            for (x = 0; p < end && (unsigned)(*p - '0') < 10 && x < 1000; p++)
-                x = x * 10 + (*p - '0');
-            if (p != end || p == x0)
-                return -1;
-        }
-        e += eneg ? -x : x;
-    }
-    if (e < -22 || e > 22)
-        return -1;
-    d->m = m;
-    d->e = e;
-    return 0;
+    return tf_scan_short_rest(p, end, decimal, d);
 }
 
 /* The fast path's value of d: m * 10^e in one IEEE operation (exact operands). */

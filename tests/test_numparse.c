@@ -277,7 +277,12 @@ static void test_numparse_field_shapes(void **state)
     const char *cases[] = {"", "-", "+", ".", "-.", "e5", ".e5", "1.5e-03", "-0.0", "+0",
                            "123456789012345", "1234567890123456", "0.12345678", "0.123456789",
                            "12345678.1234567", "1.2345678901234e-22", "9.99999999999999e22",
-                           "inf", "-nan", NULL};
+                           "inf", "-nan",
+                           /* the %e shape read from both ends, and near misses of it */
+                           "1.2:456e-03", "1.23456e-0:", "1.2345ee-03", "1..2345e-03",
+                           "1.2345678e+05", "-1.23456789e+05", "1.234567890e+05", "-1.2345e+22",
+                           "1.2345e+27", "1.2345e-19", "12.3456e-03", "1.2345e-3", "+9.9999e-07",
+                           "1,2345e-03", "1.2345E-03", "1.2345e*03", "a.2345e-03", NULL};
     for (int i = 0; cases[i]; i++)
         check_field(cases[i]);
     /* a number, then a NUL byte, is not one number; nor is a hexadecimal float,
