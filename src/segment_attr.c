@@ -197,10 +197,12 @@ static tf_status split_runs(const seg_input *in, const seg_run *r, size_t nr, tf
                 len > 1.15 * M_PI / wpiece)
                 cand[j] = 1;
         }
-    /* a stretch the record's end cuts: its thyristor piece's zero is not in the record,
-     * so only a gate edge inside it can split it (cand 3) */
+    /* a stretch the record's end cuts (cand 3): split at a gate edge inside it, or,
+     * when it outlasts the diode piece's natural end, where the diode piece meets a
+     * thyristor piece whose zero lies past the end */
     if (bridge && nr > 1 && r[nr - 1].k_start == SEG_B_DIRECT && r[nr - 1].k_end == SEG_B_EDGE &&
-        firing_inside(in, r[nr - 1].t_start, r[nr - 1].t_end) >= 0)
+        (firing_inside(in, r[nr - 1].t_start, r[nr - 1].t_end) >= 0 ||
+         (wpiece > 0 && r[nr - 1].t_end - r[nr - 1].t_start > M_PI / wpiece + 3)))
         cand[nr - 1] = 3;
     /* the tank's w and decay from a few stretches (searched), then every split with
      * them fixed: the shared values steady the split (w alone is known from whole pieces
@@ -274,8 +276,16 @@ static tf_status split_runs(const seg_input *in, const seg_run *r, size_t nr, tf
         }
         double s = -1, w = wsplit, vstep = NAN;
         if (cand[j] == 3) {
-            s = firing_inside(in, r[j].t_start, r[j].t_end);
-            vstep = voltage_step(in, s);
+            double g = firing_inside(in, r[j].t_start, r[j].t_end), c = -1;
+            if (w > 0 && seg_split_open(in->x, (size_t)ceil(r[j].t_start) + 1,
+                                        (size_t)floor(r[j].t_end), r[j].t_start, w, asplit,
+                                        &c) != 0)
+                c = -1;
+            if (c >= 0 && (c < r[j].t_start + 3 || c > r[j].t_start + M_PI / w + 1))
+                c = -1;
+            s = g >= 0 ? (c >= 0 && fabs(c - g) < 2.0 ? c : g) : c;
+            if (s >= 0)
+                vstep = voltage_step(in, s);
         }
         if (cand[j] == 1) {
             /* the gate edge is only known to the sample; the meeting point of the two

@@ -146,4 +146,9 @@ int seg_chain_fit(const float *x, size_t k0, size_t k1, const seg_clip *clips, s
 int seg_split_pieces(const float *x, size_t k0, size_t k1, double z0, double z1, double *w,
                      double *a, int fixed, double *split);
 
+/* The same split for a stretch cut by the record's end (k1): the thyristor piece's zero
+ * lies past it and is searched; w and a (> 0: known) are held. Returns 0 and *split. */
+int seg_split_open(const float *x, size_t k0, size_t k1, double z0, double w, double a,
+                   double *split);
+
 #endif

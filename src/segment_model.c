@@ -263,6 +263,53 @@ int seg_split_pieces(const float *x, size_t k0, size_t k1, double z0, double z1,
     return split_at(x, k0, k1, s, z0, z1, wf, af, amp, nb, split);
 }
 
+/* seg_split_open: as seg_split_pieces with w and a fixed, for a stretch the record's
+ * end cuts: the thyristor piece's zero z1 lies past k1, so it is searched (a grid over
+ * half a period, then golden sections on the swept residual). */
+int seg_split_open(const float *x, size_t k0, size_t k1, double z0, double w, double a,
+                   double *split)
+{
+    if (k1 < k0 + 12 || !(w > 0))
+        return -1;
+    double half = M_PI / w, amp[2], nb[3], best = INFINITY, bz = NAN;
+    size_t s = 0;
+    const int ng = 48;
+    for (int i = 1; i <= ng; i++) {
+        double z1 = (double)k1 + half * i / ng;
+        double res = split_residual(x, k0, k1, z0, z1, w, a, &s, amp, NULL);
+        if (res < best) {
+            best = res;
+            bz = z1;
+        }
+    }
+    if (!isfinite(bz))
+        return -1;
+    const double gr = 0.5 * (sqrt(5.0) - 1);
+    double lo = bz - half / ng, hi = bz + half / ng;
+    double c = hi - gr * (hi - lo), d = lo + gr * (hi - lo);
+    double fc = split_residual(x, k0, k1, z0, c, w, a, &s, amp, NULL);
+    double fd = split_residual(x, k0, k1, z0, d, w, a, &s, amp, NULL);
+    for (int it = 0; it < 40; it++) {
+        if (fc < fd) {
+            hi = d;
+            d = c;
+            fd = fc;
+            c = hi - gr * (hi - lo);
+            fc = split_residual(x, k0, k1, z0, c, w, a, &s, amp, NULL);
+        } else {
+            lo = c;
+            c = d;
+            fc = fd;
+            d = lo + gr * (hi - lo);
+            fd = split_residual(x, k0, k1, z0, d, w, a, &s, amp, NULL);
+        }
+    }
+    bz = 0.5 * (lo + hi);
+    if (!isfinite(split_residual(x, k0, k1, z0, bz, w, a, &s, amp, nb)))
+        return -1;
+    return split_at(x, k0, k1, s, z0, bz, w, a, amp, nb, split);
+}
+
 /* Sub-sample split near the best sample split s of the fitted pieces. */
 /* Amplitudes of the two pieces for the split before sample ks. */
 static void split_amps(const float *x, size_t k0, size_t k1, size_t ks, double z0, double z1,
