@@ -938,7 +938,7 @@ static void sim_free(sim_case *c)
  * true peak at least two of the segmenter's bands, the scan's floor for a lobe:
  * docs/segmenter.md) is a lobe with the right device; every boundary within 0.5 sample,
  * at a zero and at a firing inside a same-sign stretch alike (measured at firings on the
- * overlapping half and full bridges at 9-11 kHz: 0.20-0.36 sample); turn-off time
+ * overlapping half and full bridges at 9-11 kHz: 0.20-0.42 sample); turn-off time
  * available within 1 sample + 0.5 % (issue 4). */
 static void sim_check(const sim_case *c, size_t min_count, int check_turnoff)
 {
