@@ -153,6 +153,23 @@ static const char *truth_mode(json_t *t)
     return json_string_value(json_object_get(t, "mode"));
 }
 
+/* The crossing helper the comparisons rely on: one step across both levels gives its two
+ * crossings in time order (a rising step meets -level first), each linearly interpolated. */
+static void test_spice_crossings_in_time_order(void **state)
+{
+    (void)state;
+    const float rise[] = {-10.0f, 10.0f, 10.0f, -10.0f};
+    double t[8];
+    int dir[8];
+    assert_int_equal(tf_spice_crossings(rise, 4, 0.0, 1.0, 1.0, t, dir, 8), 4);
+    const int want_dir[] = {-2, 1, -1, 2};
+    const double want_t[] = {0.45, 0.55, 2.45, 2.55};
+    for (int k = 0; k < 4; k++) {
+        assert_int_equal(dir[k], want_dir[k]);
+        assert_true(fabs(t[k] - want_t[k]) < 1e-12);
+    }
+}
+
 static void test_spice_ngspice_installed(void **state)
 {
     (void)state;
@@ -320,6 +337,7 @@ static void test_spice_detects_a_wrong_inductance(void **state)
 int main(void)
 {
     const struct CMUnitTest tests[] = {
+        cmocka_unit_test(test_spice_crossings_in_time_order),
         cmocka_unit_test(test_spice_ngspice_installed),
         cmocka_unit_test(test_spice_first_lobe_is_textbook),
         cmocka_unit_test(test_spice_half_bridge_non_overlapping),

@@ -315,17 +315,24 @@ size_t tf_spice_crossings(const float *x, size_t n, double t0, double dt, double
     for (size_t k = 1; k < n; k++) {
         double a = x[k - 1], b = x[k];
         const double lv[2] = {level, -level};
+        double frac[2];
+        int d[2], m = 0;
         for (int s = 0; s < 2; s++) {
             double l = lv[s];
             if ((a - l) * (b - l) < 0 || (b == l && a != l)) {
-                double frac = (l - a) / (b - a);
-                int d = s == 0 ? (b > a ? 1 : -1) : (b < a ? 2 : -2);
-                if (count < max) {
-                    times[count] = t0 + ((double)(k - 1) + frac) * dt;
-                    dir[count] = d;
-                }
-                count++;
+                frac[m] = (l - a) / (b - a);
+                d[m++] = s == 0 ? (b > a ? 1 : -1) : (b < a ? 2 : -2);
             }
+        }
+        /* one step across both levels: emit the two crossings in time order */
+        int first = m == 2 && frac[1] < frac[0];
+        for (int j = 0; j < m; j++) {
+            int e = first ? 1 - j : j;
+            if (count < max) {
+                times[count] = t0 + ((double)(k - 1) + frac[e]) * dt;
+                dir[count] = d[e];
+            }
+            count++;
         }
     }
     return count;

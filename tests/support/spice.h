@@ -87,7 +87,8 @@ int tf_spice_run(const tf_design *d, const tf_spice_options *o, tf_capture **out
  * falling below it) and -level (dir +2: falling below -level, -2: rising above it),
  * each time linearly interpolated. Stores at most max entries; returns the count
  * found (may exceed max). With a small level (e.g. 1 % of the peak) these are the
- * lobe starts and ends of a current, robust to the tiny currents of blocked devices. */
+ * lobe starts and ends of a current, robust to the tiny currents of blocked devices.
+ * Two crossings inside one sample step come out in time order. */
 size_t tf_spice_crossings(const float *x, size_t n, double t0, double dt, double level,
                           double *times, int *dir, size_t max);
 
