@@ -6,6 +6,11 @@
 #include <stddef.h>
 #include <complex.h>
 #include <fftw3.h>
+#include <tankfit/capture.h>
+#include <tankfit/segment.h>
+
+#define TF_SP_MAX_CH 3      /* channels analysed: current, voltage, capacitor voltage */
+#define TF_SP_MAX_THREADS 8
 
 /* 1/6 of the cubic weights as a product: a division costs most of the resampling
  * (the product differs from the quotient by at most one unit in the last place). */
@@ -54,5 +59,25 @@ int tf_sp_hann_peak(const fftw_complex *X, size_t L, double nu_guess, int search
 
 /* Apply the periodic Hann window w[k] = 0.5 - 0.5 cos(2 pi k / L) to x. */
 void tf_sp_hann_apply(double *x, size_t L);
+
+/* One channel of the pass: its samples and window start (fractional sample index) in,
+ * its S folded sums (zeroed by the caller), sum of squares and largest |sample| out. */
+typedef struct tf_sp_channel {
+    const float *x;
+    double pos0;
+    double *fold;
+    double sumsq, peak;
+} tf_sp_channel;
+
+/* The pass over M periods of S points (grid step `step` samples) of nw <= TF_SP_MAX_CH
+ * channels of cap: fills each channel's fold, sum of squares and raw peak and returns the
+ * sum of v i over the window (channel iv against ii; iv < 0: none, 0 returned). With
+ * iv >= 0 and the cycles of seg, *energy gets the integral of v(t + skew_s) i(t) over
+ * each complete cycle (malloc'd, one per cycle, NAN where a cycle reaches outside the
+ * record; the caller frees it), else NULL. threads: 0 = one per core (at most 2),
+ * 1..TF_SP_MAX_THREADS; every count gives the same bits. NAN when out of memory. */
+double tf_sp_pass(const tf_capture *cap, tf_sp_channel *ch, int nw, size_t M, size_t S,
+                  double step, int iv, int ii, const tf_segment_result *seg, double skew_s,
+                  int threads, double **energy);
 
 #endif
