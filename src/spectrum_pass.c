@@ -69,7 +69,7 @@ typedef struct pass {
 
 /* Stencils of L <= TILE consecutive grid points p0 + j step, j in [j0, j0 + L): the
  * arithmetic of stencil(), without its clamps when no point needs them, in loops the
- * compiler vectorises (the divisions by 6 cost most of the fold). */
+ * compiler vectorises. */
 typedef struct tile {
     size_t k[TILE];
     double w[4][TILE];
