@@ -1,10 +1,13 @@
 /* The capture container: allocation, metadata, warnings, lookup and statistics. */
 #include <tankfit/capture.h>
 
+#include <pthread.h>
 #include <stdarg.h>
+#include <stdatomic.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <unistd.h>
 
 tf_capture *tf_capture_create(void)
 {
@@ -117,12 +120,42 @@ int tf_capture_find(const tf_capture *cap, const char *name)
     return -1;
 }
 
+#define STATS_THREADS_MAX 8
+#define STATS_THREAD_SAMPLES ((size_t)1 << 20) /* shorter channels: one thread */
+
+typedef struct stats_job {
+    tf_capture *cap;
+    atomic_size_t next; /* the next channel to take */
+} stats_job;
+
+static void *stats_worker(void *arg)
+{
+    stats_job *j = arg;
+    for (size_t c; (c = atomic_fetch_add(&j->next, 1)) < j->cap->nchan;) {
+        tf_stats_compute(j->cap->ch[c].samples, j->cap->n, &j->cap->ch[c].stats);
+        j->cap->ch[c].stats_valid = 1;
+    }
+    return NULL;
+}
+
+/* Channels are independent: long ones are shared out over the cores, each channel
+ * computed whole by one thread, so the figures do not depend on the thread count. */
 void tf_capture_compute_stats(tf_capture *cap)
 {
-    for (size_t c = 0; c < cap->nchan; c++) {
-        if (cap->n == 0)
-            continue;
-        tf_stats_compute(cap->ch[c].samples, cap->n, &cap->ch[c].stats);
-        cap->ch[c].stats_valid = 1;
-    }
+    if (cap->n == 0)
+        return;
+    stats_job j = {cap, 0};
+    long cpus = sysconf(_SC_NPROCESSORS_ONLN);
+    size_t want = cap->n >= STATS_THREAD_SAMPLES && cpus > 1 ? (size_t)cpus : 1;
+    if (want > cap->nchan)
+        want = cap->nchan;
+    if (want > STATS_THREADS_MAX)
+        want = STATS_THREADS_MAX;
+    pthread_t th[STATS_THREADS_MAX];
+    size_t started = 0;
+    while (started + 1 < want && pthread_create(&th[started], NULL, stats_worker, &j) == 0)
+        started++;
+    stats_worker(&j);
+    for (size_t t = 0; t < started; t++)
+        pthread_join(th[t], NULL);
 }

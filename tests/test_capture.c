@@ -51,6 +51,32 @@ static void test_capture_container(void **state)
     tf_capture_destroy(NULL);
 }
 
+/* Long channels share the cores (one whole channel per thread): every channel's figures
+ * equal tf_stats_compute on that channel alone, bit for bit, and each channel's own
+ * maximum (its square wave's crest plus the largest added step) lands in its own slot. */
+static void test_capture_stats_long_channels(void **state)
+{
+    (void)state;
+    const size_t n = (size_t)3 << 20, nchan = 5;
+    tf_capture *cap = tf_capture_create();
+    tf_error err;
+    assert_non_null(cap);
+    assert_int_equal(tf_capture_alloc(cap, nchan, n, &err), TF_OK);
+    for (size_t c = 0; c < nchan; c++)
+        for (size_t k = 0; k < n; k++)
+            cap->ch[c].samples[k] = (float)(c + 1) * ((k / 100) % 2 ? 2.0f : -2.0f) +
+                                    (float)((k * 2654435761u) % 7) * 0.01f;
+    tf_capture_compute_stats(cap);
+    for (size_t c = 0; c < nchan; c++) {
+        tf_channel_stats alone;
+        tf_stats_compute(cap->ch[c].samples, n, &alone);
+        assert_true(cap->ch[c].stats_valid);
+        assert_memory_equal(&cap->ch[c].stats, &alone, sizeof alone);
+        assert_true(fabs(alone.max - (2.0 * (double)(c + 1) + 0.06)) < 1e-5);
+    }
+    tf_capture_destroy(cap);
+}
+
 static void test_capture_json_keys(void **state)
 {
     (void)state;
@@ -195,6 +221,7 @@ int main(void)
 {
     const struct CMUnitTest tests[] = {
         cmocka_unit_test(test_capture_container),
+        cmocka_unit_test(test_capture_stats_long_channels),
         cmocka_unit_test(test_capture_json_keys),
         cmocka_unit_test(test_capture_json_unknowns),
         cmocka_unit_test(test_capture_json_python),
