@@ -403,66 +403,83 @@ static int chain_step(const float *x, size_t k0, size_t k1, size_t stride,
         int clean = !(ci < nclips && clips[ci].i0 <= kl) && !linear_only && stride == 1;
         if (clean) {
             /* four interleaved streams (rotation by 4w): the recurrences no longer wait on
-             * each other, and the lane sums can go to vector registers */
+             * each other, and the lane sums can go to vector registers. Every column of
+             * the Jacobian is A or 1 times P = e sin, Q = e cos, tau P or tau Q (the ts
+             * column is A (a P - w Q)), so the lanes sum products of those four and
+             * the piece's entries are composed from the sums after the loop; P and Q
+             * turn together, one damped rotation a step */
             enum { LN = 4 };
-            double e4[LN], c4[LN], s4[LN], t4[LN];
-            double sgg[LN] = {0}, sgr[LN] = {0}, sg0[LN] = {0}, sg1[LN] = {0}, sg2[LN] = {0};
-            double s00[LN] = {0}, s01[LN] = {0}, s02[LN] = {0}, s11[LN] = {0}, s12[LN] = {0};
-            double s22[LN] = {0}, sr0[LN] = {0}, sr1[LN] = {0}, sr2[LN] = {0};
+            double p4[LN], q4[LN], t4[LN];
+            double spp[LN] = {0}, spq[LN] = {0}, sqq[LN] = {0}, svp[LN] = {0}, svq[LN] = {0};
+            double stpp[LN] = {0}, stpq[LN] = {0}, stqq[LN] = {0}, sttpp[LN] = {0};
+            double sttpq[LN] = {0}, sttqq[LN] = {0}, svtp[LN] = {0}, svtq[LN] = {0};
             for (int l = 0; l < LN; l++) {
                 t4[l] = (double)(kf + (size_t)l) - ts;
-                e4[l] = exp(-a * t4[l]);
-                c4[l] = cos(w * t4[l]);
-                s4[l] = sin(w * t4[l]);
+                double el = exp(-a * t4[l]);
+                q4[l] = el * cos(w * t4[l]);
+                p4[l] = el * sin(w * t4[l]);
             }
-            const double de4 = exp(-a * LN), dc4 = cos(w * LN), ds4 = sin(w * LN);
+            const double de4 = exp(-a * LN), mc = de4 * cos(w * LN), ms = de4 * sin(w * LN);
             size_t k = kf;
             /* w and a held: only the amplitude and ts columns are needed */
             for (; ts_only && k + LN - 1 <= kl; k += LN) {
                 for (int l = 0; l < LN; l++) {
-                    double g = e4[l] * s4[l], v = x[k + (size_t)l], r = v - A * g;
-                    double jt = A * e4[l] * (aw * s4[l] - ww * c4[l]);
-                    sgg[l] += g * g;
-                    sgr[l] += r * g;
-                    sg2[l] += g * jt;
-                    s22[l] += jt * jt;
-                    sr2[l] += r * jt;
-                    double nc = c4[l] * dc4 - s4[l] * ds4;
-                    s4[l] = s4[l] * dc4 + c4[l] * ds4;
-                    c4[l] = nc;
-                    e4[l] *= de4;
+                    double pv = p4[l], qv = q4[l], v = x[k + (size_t)l];
+                    spp[l] += pv * pv;
+                    spq[l] += pv * qv;
+                    sqq[l] += qv * qv;
+                    svp[l] += v * pv;
+                    svq[l] += v * qv;
+                    p4[l] = pv * mc + qv * ms;
+                    q4[l] = qv * mc - pv * ms;
                 }
             }
             for (; !ts_only && k + LN - 1 <= kl; k += LN) {
                 for (int l = 0; l < LN; l++) {
-                    double g = e4[l] * s4[l], v = x[k + (size_t)l], r = v - A * g;
-                    double jw = A * e4[l] * t4[l] * c4[l], ja = -A * t4[l] * g,
-                           jt = A * e4[l] * (aw * s4[l] - ww * c4[l]);
-                    sgg[l] += g * g;
-                    sgr[l] += r * g;
-                    sg0[l] += g * jw;
-                    sg1[l] += g * ja;
-                    sg2[l] += g * jt;
-                    s00[l] += jw * jw;
-                    s01[l] += jw * ja;
-                    s02[l] += jw * jt;
-                    s11[l] += ja * ja;
-                    s12[l] += ja * jt;
-                    s22[l] += jt * jt;
-                    sr0[l] += r * jw;
-                    sr1[l] += r * ja;
-                    sr2[l] += r * jt;
-                    double nc = c4[l] * dc4 - s4[l] * ds4;
-                    s4[l] = s4[l] * dc4 + c4[l] * ds4;
-                    c4[l] = nc;
-                    e4[l] *= de4;
-                    t4[l] += LN;
+                    double pv = p4[l], qv = q4[l], v = x[k + (size_t)l], tl = t4[l];
+                    double tp = tl * pv, tq = tl * qv;
+                    spp[l] += pv * pv;
+                    spq[l] += pv * qv;
+                    sqq[l] += qv * qv;
+                    svp[l] += v * pv;
+                    svq[l] += v * qv;
+                    stpp[l] += tp * pv;
+                    stpq[l] += tp * qv;
+                    stqq[l] += tq * qv;
+                    sttpp[l] += tp * tp;
+                    sttpq[l] += tp * tq;
+                    sttqq[l] += tq * tq;
+                    svtp[l] += v * tp;
+                    svtq[l] += v * tq;
+                    p4[l] = pv * mc + qv * ms;
+                    q4[l] = qv * mc - pv * ms;
+                    t4[l] = tl + LN;
                 }
             }
+            double pp = 0, pq = 0, qq = 0, vp = 0, vq = 0, tpp = 0, tpq = 0, tqq = 0;
+            double ttpp = 0, ttpq = 0, ttqq = 0, vtp = 0, vtq = 0;
             for (int l = 0; l < LN; l++) {
-                gg += sgg[l]; gr += sgr[l]; g0 += sg0[l]; g1 += sg1[l]; g2 += sg2[l];
-                n00 += s00[l]; n01 += s01[l]; n02 += s02[l]; n11 += s11[l]; n12 += s12[l];
-                n22 += s22[l]; r0 += sr0[l]; r1 += sr1[l]; r2 += sr2[l];
+                pp += spp[l]; pq += spq[l]; qq += sqq[l]; vp += svp[l]; vq += svq[l];
+                tpp += stpp[l]; tpq += stpq[l]; tqq += stqq[l]; ttpp += sttpp[l];
+                ttpq += sttpq[l]; ttqq += sttqq[l]; vtp += svtp[l]; vtq += svtq[l];
+            }
+            /* g = P, r = v - A P, jw = A tau Q, ja = -A tau P, jt = A (a P - w Q) */
+            const double A2 = A * A, rp = vp - A * pp, rq = vq - A * pq;
+            gg += pp;
+            gr += rp;
+            g2 += A * (aw * pp - ww * pq);
+            n22 += A2 * (aw * aw * pp - 2 * aw * ww * pq + ww * ww * qq);
+            r2 += A * (aw * rp - ww * rq);
+            if (!ts_only) {
+                g0 += A * tpq;
+                g1 -= A * tpp;
+                n00 += A2 * ttqq;
+                n01 -= A2 * ttpq;
+                n02 += A2 * (aw * tpq - ww * tqq);
+                n11 += A2 * ttpp;
+                n12 -= A2 * (aw * tpp - ww * tpq);
+                r0 += A * (vtq - A * tpq);
+                r1 -= A * (vtp - A * tpp);
             }
             used += k - kf;
             first = (double)k; /* the tail, below, one sample at a time */

@@ -46,6 +46,16 @@ int main(int argc, char **argv)
         best_cpu = cpu < best_cpu ? cpu : best_cpu;
         lobes = r->nlobes;
         cycles = r->ncycles;
+        /* TF_BENCH_DUMP=FILE: every lobe's boundaries and peak in hex, to compare the
+         * bits of two builds */
+        const char *dump = getenv("TF_BENCH_DUMP");
+        FILE *df = rep == 0 && dump ? fopen(dump, "w") : NULL;
+        for (size_t i = 0; df && i < r->nlobes; i++)
+            fprintf(df, "%a %a %a %a %d %d\n", r->lobes[i].start_s, r->lobes[i].end_s,
+                    r->lobes[i].peak_s, r->lobes[i].charge_c, r->lobes[i].start_model,
+                    r->lobes[i].end_model);
+        if (df)
+            fclose(df);
         tf_segment_free(r);
     }
     printf("%zu samples, %zu lobes, %zu cycles: best wall %.3f s (%.1f million samples/s), "
