@@ -16,6 +16,27 @@
  * (the product differs from the quotient by at most one unit in the last place). */
 #define TF_SP_SIXTH (1.0 / 6.0)
 
+/* The stencil of tf_sp_interp: its first sample index and the four cubic weights. */
+static inline size_t tf_sp_stencil(double pos, size_t n, double wt[4])
+{
+    if (pos < -0.5)
+        pos = -0.5;
+    else if (pos > (double)n - 0.5)
+        pos = (double)n - 0.5;
+    long k = (long)(pos + 1.0) - 2; /* pos + 1 > 0: truncation is floor */
+    if (k < 0)
+        k = 0;
+    else if (k > (long)n - 4)
+        k = (long)n - 4;
+    const double u = pos - (double)k;
+    const double a = u - 1.0, b = u - 2.0, c = u - 3.0;
+    wt[0] = -(a * b * c * TF_SP_SIXTH);
+    wt[1] = u * b * c * 0.5;
+    wt[2] = -(u * a * c * 0.5);
+    wt[3] = u * a * b * TF_SP_SIXTH;
+    return (size_t)k;
+}
+
 /* Cubic Lagrange interpolation of x[0..n-1] (n >= 4) at fractional index pos,
  * through the four samples around it (the stencil moves inwards at the ends). At an integer position it returns
  * the sample exactly. Up to half a sample beyond either end the cubic through
@@ -23,20 +44,9 @@
  * per period: 36.5 A / P^4 (docs/spectrum.md). */
 static inline double tf_sp_interp(const float *x, size_t n, double pos)
 {
-    if (pos < -0.5)
-        pos = -0.5;
-    else if (pos > (double)n - 0.5)
-        pos = (double)n - 0.5;
-    long k = (long)floor(pos) - 1;
-    if (k < 0)
-        k = 0;
-    else if (k > (long)n - 4)
-        k = (long)n - 4;
-    const double u = pos - (double)k;
-    const double a = u - 1.0, b = u - 2.0, c = u - 3.0;
-    const float *p = x + k;
-    return -(a * b * c * TF_SP_SIXTH) * p[0] + (u * b * c * 0.5) * p[1] - (u * a * c * 0.5) * p[2] +
-           (u * a * b * TF_SP_SIXTH) * p[3];
+    double w[4];
+    const float *p = x + tf_sp_stencil(pos, n, w);
+    return w[0] * p[0] + w[1] * p[1] + w[2] * p[2] + w[3] * p[3];
 }
 
 /* out[j] = tf_sp_interp(x, n, pos0 + j * step) for j in [0, count): the

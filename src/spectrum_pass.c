@@ -12,26 +12,6 @@
 #define MAX_CH TF_SP_MAX_CH
 #define MAX_THREADS TF_SP_MAX_THREADS
 
-/* Stencil of tf_sp_interp: first sample index and the four cubic weights. */
-static inline size_t stencil(double pos, size_t n, double wt[4])
-{
-    if (pos < -0.5)
-        pos = -0.5;
-    else if (pos > (double)n - 0.5)
-        pos = (double)n - 0.5;
-    long k = (long)(pos + 1.0) - 2; /* pos + 1 > 0: truncation is floor */
-    if (k < 0)
-        k = 0;
-    else if (k > (long)n - 4)
-        k = (long)n - 4;
-    const double u = pos - (double)k;
-    const double a = u - 1.0, b = u - 2.0, c = u - 3.0;
-    wt[0] = -(a * b * c * TF_SP_SIXTH);
-    wt[1] = u * b * c * 0.5;
-    wt[2] = -(u * a * c * 0.5);
-    wt[3] = u * a * b * TF_SP_SIXTH;
-    return (size_t)k;
-}
 
 /* ---- the pass over the samples -------------------------------------------------------
  * Everything that reads the whole window is one pass, cut into tasks fixed by the
@@ -68,7 +48,7 @@ typedef struct pass {
 } pass;
 
 /* Stencils of L <= TILE consecutive grid points p0 + j step, j in [j0, j0 + L): the
- * arithmetic of stencil(), without its clamps when no point needs them, in loops the
+ * arithmetic of tf_sp_stencil(), without its clamps when no point needs them, in loops the
  * compiler vectorises. */
 typedef struct tile {
     size_t k[TILE];
@@ -98,7 +78,7 @@ static void tile_stencils(double p0, double step, size_t j0, size_t L, size_t n,
     }
     for (size_t q = 0; q < L; q++) {
         double wt[4];
-        t->k[q] = stencil(p0 + (jd + (double)q) * step, n, wt);
+        t->k[q] = tf_sp_stencil(p0 + (jd + (double)q) * step, n, wt);
         for (int i = 0; i < 4; i++)
             t->w[i][q] = wt[i];
     }
