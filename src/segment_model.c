@@ -369,9 +369,14 @@ static int split_at(const float *x, size_t k0, size_t k1, size_t s, double z0, d
 #define CHAIN_MAX 64
 /* samples per piece used by the chain fit (stride chosen to keep about this many) */
 #define SEG_CHAIN_SAMPLES 1000000
-/* a quick fit whose first step moved ts less than this (samples) is done: the next step
- * would be about its square times the curvature, far below the noise */
-#define SEG_QUICK_ONE_STEP 0.25
+/* a quick fit whose full-resolution step moved ts less than this (samples) is done: the
+ * next step would be about its square times the curvature (on the 10^7-sample benchmark
+ * every boundary within 1e-4 sample of the fit iterated to 1e-6, docs/segmenter.md) */
+#define SEG_QUICK_ONE_STEP 0.1
+/* the first step of a chain fit on every this many samples, for pieces of at least
+ * SEG_CHAIN_COARSE_MIN samples */
+#define SEG_CHAIN_COARSE 2
+#define SEG_CHAIN_COARSE_MIN 128
 
 /* One pass over the chain's samples: with linear_only the amplitudes alone (for fixed
  * ts, w, a), else the Gauss-Newton step delta = (amplitudes, w, a, ts). Each sample
@@ -400,7 +405,7 @@ static int chain_step(const float *x, size_t k0, size_t k1, size_t stride,
         size_t kf = (size_t)first, kl = (size_t)fmin(floor(hi), (double)k1);
         while (ci < nclips && clips[ci].i1 < kf)
             ci++;
-        int clean = !(ci < nclips && clips[ci].i0 <= kl) && !linear_only && stride == 1;
+        int clean = !(ci < nclips && clips[ci].i0 <= kl) && !linear_only;
         if (clean) {
             /* four interleaved streams (rotation by 4w): the recurrences no longer wait on
              * each other, and the lane sums can go to vector registers. Every column of
@@ -414,17 +419,19 @@ static int chain_step(const float *x, size_t k0, size_t k1, size_t stride,
             double stpp[LN] = {0}, stpq[LN] = {0}, stqq[LN] = {0}, sttpp[LN] = {0};
             double sttpq[LN] = {0}, sttqq[LN] = {0}, svtp[LN] = {0}, svtq[LN] = {0};
             for (int l = 0; l < LN; l++) {
-                t4[l] = (double)(kf + (size_t)l) - ts;
+                t4[l] = (double)(kf + (size_t)l * stride) - ts;
                 double el = exp(-a * t4[l]);
                 q4[l] = el * cos(w * t4[l]);
                 p4[l] = el * sin(w * t4[l]);
             }
-            const double de4 = exp(-a * LN), mc = de4 * cos(w * LN), ms = de4 * sin(w * LN);
+            const size_t sl = LN * stride;
+            const double de4 = exp(-a * (double)sl), mc = de4 * cos(w * (double)sl),
+                         ms = de4 * sin(w * (double)sl), tl4 = (double)sl;
             size_t k = kf;
             /* w and a held: only the amplitude and ts columns are needed */
-            for (; ts_only && k + LN - 1 <= kl; k += LN) {
+            for (; ts_only && k + (LN - 1) * stride <= kl; k += sl) {
                 for (int l = 0; l < LN; l++) {
-                    double pv = p4[l], qv = q4[l], v = x[k + (size_t)l];
+                    double pv = p4[l], qv = q4[l], v = x[k + (size_t)l * stride];
                     spp[l] += pv * pv;
                     spq[l] += pv * qv;
                     sqq[l] += qv * qv;
@@ -434,9 +441,9 @@ static int chain_step(const float *x, size_t k0, size_t k1, size_t stride,
                     q4[l] = qv * mc - pv * ms;
                 }
             }
-            for (; !ts_only && k + LN - 1 <= kl; k += LN) {
+            for (; !ts_only && k + (LN - 1) * stride <= kl; k += sl) {
                 for (int l = 0; l < LN; l++) {
-                    double pv = p4[l], qv = q4[l], v = x[k + (size_t)l], tl = t4[l];
+                    double pv = p4[l], qv = q4[l], v = x[k + (size_t)l * stride], tl = t4[l];
                     double tp = tl * pv, tq = tl * qv;
                     spp[l] += pv * pv;
                     spq[l] += pv * qv;
@@ -453,7 +460,7 @@ static int chain_step(const float *x, size_t k0, size_t k1, size_t stride,
                     svtq[l] += v * tq;
                     p4[l] = pv * mc + qv * ms;
                     q4[l] = qv * mc - pv * ms;
-                    t4[l] = tl + LN;
+                    t4[l] = tl + tl4;
                 }
             }
             double pp = 0, pq = 0, qq = 0, vp = 0, vq = 0, tpp = 0, tpq = 0, tqq = 0;
@@ -481,7 +488,7 @@ static int chain_step(const float *x, size_t k0, size_t k1, size_t stride,
                 r0 += A * (vtq - A * tpq);
                 r1 -= A * (vtp - A * tpp);
             }
-            used += k - kf;
+            used += (k - kf) / stride;
             first = (double)k; /* the tail, below, one sample at a time */
         }
         double tau = first - ts, e = exp(-a * tau), co = cos(w * tau), si = sin(w * tau);
@@ -581,6 +588,22 @@ int seg_chain_fit(const float *x, size_t k0, size_t k1, const seg_clip *clips, s
         memcpy(amp, amp0, np * sizeof *amp);
     else if (chain_step(x, k0, k1, stride, clips, nclips, np, t, ww, aa, amp, 1, 0, d) != 0)
         return -1;
+    /* the rough start is often a sample or more off (a dead zone's crossing): a first
+     * step on every SEG_CHAIN_COARSE-th sample brings it to within a few hundredths of a
+     * sample, so that one full-resolution step nearly always suffices (a rejected
+     * coarse step is dropped: the full steps start from the rough values) */
+    if (per >= SEG_CHAIN_COARSE_MIN) {
+        size_t sc = stride * SEG_CHAIN_COARSE;
+        if (chain_step(x, k0, k1, sc, clips, nclips, np, t, ww, aa, amp, 0, ts_only, d) == 0 &&
+            isfinite(d[np]) && isfinite(d[np + 1]) && isfinite(d[np + 2]) &&
+            fabs(d[np]) <= 0.2 * ww && fabs(d[np + 2]) <= 0.1 * M_PI / ww) {
+            for (size_t p = 0; p < np; p++)
+                amp[p] += d[p];
+            ww += d[np];
+            aa += d[np + 1];
+            t += d[np + 2];
+        }
+    }
     for (int it = 0; it < 8; it++) {
         if (chain_step(x, k0, k1, stride, clips, nclips, np, t, ww, aa, amp, 0, ts_only, d) != 0)
             return -1;
@@ -593,8 +616,8 @@ int seg_chain_fit(const float *x, size_t k0, size_t k1, const seg_clip *clips, s
         ww += dw;
         aa += da;
         t += dts;
-        /* quadratic convergence: from a start within a few samples one step leaves
-         * ts within about 1e-3 sample when w and a are held */
+        /* quadratic convergence: with w and a held, a step under SEG_QUICK_ONE_STEP
+         * leaves ts within about 1e-4 sample of the optimum */
         if ((ts_only && fabs(dts) < SEG_QUICK_ONE_STEP) || (fabs(dts) < 2e-2 && fabs(dw) < 1e-6 * ww))
             break;
     }
