@@ -120,37 +120,39 @@ double seg_quiet_sigma(const float *pairs, size_t m, double quiet, double *rest)
 
 tf_status seg_scan(const float *x, size_t n, double band, seg_vec *exc)
 {
-    const float b = (float)band;
-    int cur = 0;
-    size_t i0 = 0, ipk = 0;
-    float pk = 0;
-    for (size_t k = 0; k < n; k++) {
-        float v = x[k];
-        int s = (v > b) - (v < -b);
-        if (s == cur) {
-            if (s && fabsf(v) > pk) {
-                pk = fabsf(v);
-                ipk = k;
-            }
-            continue;
+    const float b = (float)band, nb = -b;
+    size_t k = 0;
+    /* one tight loop per state: in the band (or NaN), above it, below it */
+    while (k < n) {
+        while (k < n && !(x[k] > b) && !(x[k] < nb))
+            k++;
+        if (k == n)
+            break;
+        size_t i0 = k, ipk = k;
+        int sign;
+        float pk;
+        if (x[k] > b) {
+            sign = 1;
+            pk = x[k];
+            for (k++; k < n && x[k] > b; k++)
+                if (x[k] > pk) {
+                    pk = x[k];
+                    ipk = k;
+                }
+        } else {
+            sign = -1;
+            pk = x[k];
+            for (k++; k < n && x[k] < nb; k++)
+                if (x[k] < pk) {
+                    pk = x[k];
+                    ipk = k;
+                }
+            pk = -pk;
         }
-        if (cur != 0) {
-            seg_exc *e = seg_vec_push(exc);
-            if (!e)
-                return TF_ERR_NOMEM;
-            *e = (seg_exc){i0, k - 1, ipk, pk, cur};
-        }
-        cur = s;
-        if (s) {
-            i0 = ipk = k;
-            pk = fabsf(v);
-        }
-    }
-    if (cur != 0) {
         seg_exc *e = seg_vec_push(exc);
         if (!e)
             return TF_ERR_NOMEM;
-        *e = (seg_exc){i0, n - 1, ipk, pk, cur};
+        *e = (seg_exc){i0, k - 1, ipk, pk, sign};
     }
     return TF_OK;
 }
