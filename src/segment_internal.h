@@ -133,8 +133,10 @@ int seg_model_zero(const float *x, size_t k0, size_t k1, const seg_clip *clips, 
  * thyristor lobe and its diode lobe, or a ring-down). Least squares over [k0, k1]
  * outside clipped stretches by Gauss-Newton on ts, w, a with the amplitudes linear.
  * amp0 (np values, may be NULL) are prior amplitudes; *ts, *w, *a hold the priors and
- * receive the fit; ts_only holds w and a (one Gauss-Newton step on ts and the
- * amplitudes, for bursts after a full fit). Returns 0 on success. */
+ * receive the fit; ts_only holds w and a (Gauss-Newton on ts and the amplitudes alone,
+ * for bursts after a full fit: on a clean chain iterated to convergence from one pass
+ * over the samples, else stopped after a step under SEG_QUICK_ONE_STEP). Returns 0 on
+ * success. */
 int seg_chain_fit(const float *x, size_t k0, size_t k1, const seg_clip *clips, size_t nclips,
                   size_t np, const double *amp0, int ts_only, double *ts, double *w, double *a);
 

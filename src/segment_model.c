@@ -369,9 +369,9 @@ static int split_at(const float *x, size_t k0, size_t k1, size_t s, double z0, d
 #define CHAIN_MAX 64
 /* samples per piece used by the chain fit (stride chosen to keep about this many) */
 #define SEG_CHAIN_SAMPLES 1000000
-/* a quick fit whose full-resolution step moved ts less than this (samples) is done: the
- * next step would be about its square times the curvature (on the 10^7-sample benchmark
- * every boundary within 1e-4 sample of the fit iterated to 1e-6, docs/segmenter.md) */
+/* a quick fit on a chain with clipped samples or a stride (chain_quick does the rest)
+ * whose full-resolution step moved ts less than this (samples) is done: the next step
+ * would be about its square times the curvature */
 #define SEG_QUICK_ONE_STEP 0.1
 /* the first step of a chain fit on every this many samples, for pieces of at least
  * SEG_CHAIN_COARSE_MIN samples */
@@ -574,6 +574,155 @@ static int chain_step(const float *x, size_t k0, size_t k1, size_t stride,
     return spd_solve(jtj, jtr, delta, m);
 }
 
+/* Sums over samples f..l (clean, stride 1) of P P, P Q, Q Q, v P, v Q with P = e^{-a tau}
+ * sin(w tau), Q = e^{-a tau} cos(w tau), tau = k - ts: added to s[0..4]. */
+static void pq_sums(const float *x, size_t f, size_t l, double ts, double w, double a,
+                    double s[5])
+{
+    if (l < f)
+        return;
+    enum { LN = 4 };
+    double p4[LN], q4[LN];
+    double spp[LN] = {0}, spq[LN] = {0}, sqq[LN] = {0}, svp[LN] = {0}, svq[LN] = {0};
+    for (int i = 0; i < LN; i++) {
+        double t = (double)(f + (size_t)i) - ts, el = exp(-a * t);
+        q4[i] = el * cos(w * t);
+        p4[i] = el * sin(w * t);
+    }
+    const double de4 = exp(-a * LN), mc = de4 * cos(w * LN), ms = de4 * sin(w * LN);
+    size_t k = f;
+    for (; k + LN - 1 <= l; k += LN) {
+        for (int i = 0; i < LN; i++) {
+            double pv = p4[i], qv = q4[i], v = x[k + (size_t)i];
+            spp[i] += pv * pv;
+            spq[i] += pv * qv;
+            sqq[i] += qv * qv;
+            svp[i] += v * pv;
+            svq[i] += v * qv;
+            p4[i] = pv * mc + qv * ms;
+            q4[i] = qv * mc - pv * ms;
+        }
+    }
+    /* the tail: lane i holds sample k + i */
+    for (int i = 0; k + (size_t)i <= l; i++) {
+        double pv = p4[i], qv = q4[i], v = x[k + (size_t)i];
+        spp[i] += pv * pv;
+        spq[i] += pv * qv;
+        sqq[i] += qv * qv;
+        svp[i] += v * pv;
+        svq[i] += v * qv;
+    }
+    for (int i = 0; i < LN; i++) {
+        s[0] += spp[i];
+        s[1] += spq[i];
+        s[2] += sqq[i];
+        s[3] += svp[i];
+        s[4] += svq[i];
+    }
+}
+
+/* Sample range [*f, *l] of piece p (empty when *l < *f), as chain_step takes it. */
+static void piece_range(size_t k0, size_t k1, size_t np, size_t p, double ts, double half,
+                        size_t *f, size_t *l)
+{
+    double lo = ts + (double)p * half, hi = p + 1 == np ? (double)k1 : lo + half;
+    double first = fmax((double)k0, floor(lo) + 1);
+    if (first > hi || first > (double)k1 || !(first >= 0)) {
+        *f = 1;
+        *l = 0;
+        return;
+    }
+    *f = (size_t)first;
+    *l = (size_t)fmin(floor(hi), (double)k1);
+    if (*l < *f) {
+        *f = 1;
+        *l = 0;
+    }
+}
+
+/* The quick fit (w and a held) of a clean chain at full resolution: one pass over the
+ * samples gives each piece's sums of P, Q products at the start ts; a shift of ts by d
+ * turns P and Q into e^{a d} (P cos wd - Q sin wd) and e^{a d} (Q cos wd + P sin wd),
+ * so the sums follow it exactly, and only the few samples that change piece are
+ * visited again. Gauss-Newton then runs to convergence at the cost of one pass. */
+static int chain_quick(const float *x, size_t k0, size_t k1, size_t np, double *amp,
+                       double w, double a, double *ts)
+{
+    double sums[CHAIN_MAX][5], t = *ts;
+    size_t rf[CHAIN_MAX], rl[CHAIN_MAX];
+    const double half = M_PI / w;
+    for (size_t p = 0; p < np; p++) {
+        memset(sums[p], 0, sizeof sums[p]);
+        piece_range(k0, k1, np, p, t, half, &rf[p], &rl[p]);
+        pq_sums(x, rf[p], rl[p], t, w, a, sums[p]);
+    }
+    const size_t mr = np + 1;
+    for (int it = 0; it < 20; it++) {
+        double jr[(CHAIN_MAX + 1) * (CHAIN_MAX + 1)], rr[CHAIN_MAX + 1], d[CHAIN_MAX + 1];
+        memset(jr, 0, mr * mr * sizeof *jr);
+        double n22 = 0, r2 = 0;
+        size_t used = 0;
+        for (size_t p = 0; p < np; p++) {
+            const double *s = sums[p], A = amp[p];
+            double rp = s[3] - A * s[0], rq = s[4] - A * s[1];
+            jr[p * mr + p] = s[0];
+            jr[p * mr + np] = jr[np * mr + p] = A * (a * s[0] - w * s[1]);
+            rr[p] = rp;
+            n22 += A * A * (a * a * s[0] - 2 * a * w * s[1] + w * w * s[2]);
+            r2 += A * (a * rp - w * rq);
+            used += rl[p] >= rf[p] ? rl[p] - rf[p] + 1 : 0;
+        }
+        if (used < 3 * (np + 3))
+            return -1;
+        jr[np * mr + np] = n22;
+        rr[np] = r2;
+        if (spd_solve(jr, rr, d, mr) != 0)
+            return -1;
+        double dts = d[np];
+        if (!isfinite(dts) || fabs(dts) > 0.1 * half)
+            return -1;
+        for (size_t p = 0; p < np; p++)
+            amp[p] += d[p];
+        t += dts;
+        if (fabs(dts) < 1e-6)
+            break;
+        /* the sums at the new ts: the old ones turned, then the samples that left or
+         * joined each piece */
+        const double g = exp(a * dts), c = cos(w * dts), sn = sin(w * dts), g2 = g * g;
+        for (size_t p = 0; p < np; p++) {
+            double *s = sums[p], pp = s[0], pq = s[1], qq = s[2], vp = s[3], vq = s[4];
+            s[0] = g2 * (c * c * pp - 2 * c * sn * pq + sn * sn * qq);
+            s[1] = g2 * ((c * c - sn * sn) * pq + c * sn * (pp - qq));
+            s[2] = g2 * (c * c * qq + 2 * c * sn * pq + sn * sn * pp);
+            s[3] = g * (c * vp - sn * vq);
+            s[4] = g * (c * vq + sn * vp);
+            size_t f, l, of = rf[p], ol = rl[p];
+            piece_range(k0, k1, np, p, t, half, &f, &l);
+            if (ol < of || l < f || l < of || ol < f) {
+                /* empty before or after, or no overlap: the piece afresh */
+                memset(s, 0, 5 * sizeof *s);
+                pq_sums(x, f, l, t, w, a, s);
+            } else {
+                double sub[5] = {0, 0, 0, 0, 0};
+                if (f > of)
+                    pq_sums(x, of, f - 1, t, w, a, sub);
+                if (ol > l)
+                    pq_sums(x, l + 1, ol, t, w, a, sub);
+                if (f < of)
+                    pq_sums(x, f, of - 1, t, w, a, s);
+                if (l > ol)
+                    pq_sums(x, ol + 1, l, t, w, a, s);
+                for (int i = 0; i < 5; i++)
+                    s[i] -= sub[i];
+            }
+            rf[p] = f;
+            rl[p] = l;
+        }
+    }
+    *ts = t;
+    return 0;
+}
+
 int seg_chain_fit(const float *x, size_t k0, size_t k1, const seg_clip *clips, size_t nclips,
                   size_t np, const double *amp0, int ts_only, double *ts, double *w, double *a)
 {
@@ -586,6 +735,15 @@ int seg_chain_fit(const float *x, size_t k0, size_t k1, const seg_clip *clips, s
     size_t per = (size_t)(M_PI / ww), stride = per / SEG_CHAIN_SAMPLES + 1;
     if (amp0)
         memcpy(amp, amp0, np * sizeof *amp);
+    int clipped = 0;
+    for (size_t c = 0; c < nclips; c++)
+        clipped |= clips[c].i0 <= k1 && clips[c].i1 >= k0;
+    if (ts_only && amp0 && stride == 1 && !clipped) {
+        if (chain_quick(x, k0, k1, np, amp, ww, aa, &t) != 0 || !isfinite(t))
+            return -1;
+        *ts = t;
+        return 0;
+    }
     else if (chain_step(x, k0, k1, stride, clips, nclips, np, t, ww, aa, amp, 1, 0, d) != 0)
         return -1;
     /* the rough start is often a sample or more off (a dead zone's crossing): a first
