@@ -336,18 +336,39 @@ static void lobe_stats(const seg_input *in, tf_lobe *L, double t0, double t1)
         i1 = in->n;
     if (i1 <= i0)
         i1 = i0 + 1 <= in->n ? i0 + 1 : i0;
-    double q = 0, s2 = 0, best = -1;
-    size_t kp = i0;
-    for (size_t k = i0; k < i1; k++) {
-        double v = in->x[k];
-        q += v;
-        s2 += v * v;
-        double a = v * L->sign;
-        if (a > best) {
-            best = a;
-            kp = k;
+    /* four lanes: the sums no longer wait on each other; the peak is the first largest
+     * sample, as one sequential search finds it (ties go to the lower index) */
+    enum { LN = 4 };
+    double ql[LN] = {0}, sl[LN] = {0}, bl[LN] = {-1, -1, -1, -1};
+    size_t kl[LN] = {i0, i0, i0, i0}, k = i0;
+    const double sg = L->sign;
+    for (; k + LN <= i1; k += LN)
+        for (int l = 0; l < LN; l++) {
+            double v = in->x[k + (size_t)l], a = v * sg;
+            ql[l] += v;
+            sl[l] += v * v;
+            if (a > bl[l]) {
+                bl[l] = a;
+                kl[l] = k + (size_t)l;
+            }
+        }
+    for (int l = 0; k < i1; k++, l++) {
+        double v = in->x[k], a = v * sg;
+        ql[l] += v;
+        sl[l] += v * v;
+        if (a > bl[l]) {
+            bl[l] = a;
+            kl[l] = k;
         }
     }
+    double q = (ql[0] + ql[1]) + (ql[2] + ql[3]), s2 = (sl[0] + sl[1]) + (sl[2] + sl[3]);
+    double best = bl[0];
+    size_t kp = kl[0];
+    for (int l = 1; l < LN; l++)
+        if (bl[l] > best || (bl[l] == best && kl[l] < kp)) {
+            best = bl[l];
+            kp = kl[l];
+        }
     double tp = (double)kp, vp = in->x[kp];
     if (kp > i0 && kp + 1 < i1) {
         double ym = in->x[kp - 1], y0 = in->x[kp], yp = in->x[kp + 1], den = ym - 2 * y0 + yp;
