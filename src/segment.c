@@ -449,10 +449,29 @@ tf_status tf_segment_run(const tf_capture *cap, const tf_roles *roles,
     double sigma = tf_stats_noise_sigma(x, n);
     if (!isfinite(sigma) || sigma < 0)
         sigma = seg_noise_sigma(x, n);
+    /* eight lanes (vector min/max; the same extremes as one sequential pass, NaN samples
+     * skipped as there) */
     float lo = x[0], hi = x[0];
-    for (size_t i = 1; i < n; i++) {
-        lo = x[i] < lo ? x[i] : lo;
-        hi = x[i] > hi ? x[i] : hi;
+    {
+        enum { LN = 8 };
+        float l8[LN], h8[LN];
+        for (int l = 0; l < LN; l++)
+            l8[l] = h8[l] = x[0];
+        size_t i = 1;
+        for (; i + LN <= n; i += LN)
+            for (int l = 0; l < LN; l++) {
+                float v = x[i + (size_t)l];
+                l8[l] = v < l8[l] ? v : l8[l];
+                h8[l] = v > h8[l] ? v : h8[l];
+            }
+        for (; i < n; i++) {
+            lo = x[i] < lo ? x[i] : lo;
+            hi = x[i] > hi ? x[i] : hi;
+        }
+        for (int l = 0; l < LN; l++) {
+            lo = l8[l] < lo ? l8[l] : lo;
+            hi = h8[l] > hi ? h8[l] : hi;
+        }
     }
     double peak = fmax(fabs((double)lo), fabs((double)hi));
     /* Differences over the whole record measure the lobes' slope, not the noise,
