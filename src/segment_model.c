@@ -9,6 +9,16 @@
 #include <gsl/gsl_multimin.h>
 
 /* Solve the symmetric positive definite system A y = r (n <= 4) with GSL's Cholesky. */
+/* One sample step of e^{-a t} (cos wt, sin wt) by the recurrence: e by de = e^{-a},
+ * the angle turned by (dc, ds) = (cos w, sin w). Instead of exp/sin/cos per sample. */
+static inline void turn(double *e, double *c, double *s, double de, double dc, double ds)
+{
+    double nc = *c * dc - *s * ds;
+    *s = *s * dc + *c * ds;
+    *c = nc;
+    *e *= de;
+}
+
 static int spd_solve(double *a, double *r, double *y, size_t n)
 {
     gsl_matrix_view A = gsl_matrix_view_array(a, n, n);
@@ -45,10 +55,7 @@ static int fit4(const float *x, size_t k0, size_t k1, const seg_clip *clips, siz
             used++;
         }
         /* recurrences instead of exp/sin/cos per sample; drift is far below 1e-12 here */
-        double nc = co * dc - si * ds;
-        si = si * dc + co * ds;
-        co = nc;
-        e *= de;
+        turn(&e, &co, &si, de, dc, ds);
         tau += 1.0;
     }
     if (used < 8 + (size_t)nb)
@@ -123,10 +130,7 @@ static double split_residual(const float *x, size_t k0, size_t k1, double z0, do
         txg += v * g;
         tgg += g * g;
         sxx += v * v;
-        double nc = c2 * dc - s2 * ds;
-        s2 = s2 * dc + c2 * ds;
-        c2 = nc;
-        e2 *= de;
+        turn(&e2, &c2, &s2, de, dc, ds);
     }
     double e1 = exp(-a * ((double)k0 - z0)), c1 = cos(w * ((double)k0 - z0)),
            s1 = sin(w * ((double)k0 - z0));
@@ -162,14 +166,8 @@ static double split_residual(const float *x, size_t k0, size_t k1, double z0, do
         agg += g1 * g1;
         bxg += v * g2;
         bgg += g2 * g2;
-        double n1 = c1 * dc - s1 * ds;
-        s1 = s1 * dc + c1 * ds;
-        c1 = n1;
-        e1 *= de;
-        double n2 = c2 * dc - s2 * ds;
-        s2 = s2 * dc + c2 * ds;
-        c2 = n2;
-        e2 *= de;
+        turn(&e1, &c1, &s1, de, dc, ds);
+        turn(&e2, &c2, &s2, de, dc, ds);
     }
     return best;
 }
@@ -522,10 +520,7 @@ static int chain_step(const float *x, size_t k0, size_t k1, size_t stride,
                 }
                 used++;
             }
-            double nc = co * dc - si * ds;
-            si = si * dc + co * ds;
-            co = nc;
-            e *= de;
+            turn(&e, &co, &si, de, dc, ds);
             tau += st;
         }
         jtj[p * m + p] = gg;
