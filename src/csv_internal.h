@@ -118,6 +118,17 @@ static inline long tf_csv_digits10(uint64_t m)
     return g + (m >= p10[g]);
 }
 
+/* The decimal exponent of the last digit that counts in the resolution of a
+ * nonzero short decimal d (as tf_csv_resolution): the lead digit of m sits at
+ * e + digits(m) - 1, its last at e. */
+static inline long tf_csv_short_last(const tf_short_dec *d, int sig_digits)
+{
+    long last = d->e, lead = d->e + tf_csv_digits10(d->m) - 1;
+    if (sig_digits > 0 && lead - sig_digits + 1 < last)
+        last = lead - sig_digits + 1;
+    return last;
+}
+
 /* tf_csv_time_value for any text (two passes). */
 int tf_csv_time_value_general(const char *s, size_t len, char decimal, int sig_digits,
                               double *value, double *q);
@@ -132,11 +143,7 @@ static inline int tf_csv_time_value(const char *s, size_t len, char decimal, int
     if (FLT_EVAL_METHOD != 0 || tf_scan_short(s, len, decimal, &d) != 0 || d.m == 0)
         return tf_csv_time_value_general(s, len, decimal, sig_digits, value, q);
     *value = tf_short_value(&d); /* Clinger's fast path, as tf_parse_field */
-    /* the lead digit of m sits at e + digits(m) - 1, its last at e */
-    long last = d.e, lead = d.e + tf_csv_digits10(d.m) - 1;
-    if (sig_digits > 0 && lead - sig_digits + 1 < last)
-        last = lead - sig_digits + 1;
-    *q = tf_csv_pow10(last);
+    *q = tf_csv_pow10(tf_csv_short_last(&d, sig_digits));
     return 0;
 }
 

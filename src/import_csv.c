@@ -56,6 +56,8 @@ typedef struct csv_worker {
     struct fast_col *fc;                 /* per file column: what on_field's fast path needs */
     const double *factor;
     size_t ncols;
+    size_t fast_cols;                    /* ncols, or 0 while halt or row >= cap: on_field's
+                                            inline part takes fields c < fast_cols */
     int space_mode;
     char decimal;
     int time_sig;                        /* the layout's time_sig */
@@ -81,6 +83,12 @@ typedef struct csv_worker {
     char msg[TF_ERROR_MSG_SIZE];
 } csv_worker;
 
+/* Keep fast_cols in step with halt, row and cap: call after changing any. */
+static void set_fast_cols(csv_worker *w)
+{
+    w->fast_cols = !w->halt && w->row < w->cap ? w->ncols : 0;
+}
+
 static void fail(csv_worker *w, tf_status code, size_t col, const char *fmt, ...)
     __attribute__((format(printf, 4, 5)));
 
@@ -97,6 +105,7 @@ static void fail(csv_worker *w, tf_status code, size_t col, const char *fmt, ...
     va_end(ap);
     w->status = code;
     w->halt = 1;
+    set_fast_cols(w);
 }
 
 /* A row whose first field starts with the comment mark is skipped (numpy's
@@ -107,6 +116,7 @@ static int comment_start(csv_worker *w, size_t c, const char *s, size_t len)
         return 0;
     w->comment_row = 1;
     w->halt = 1;
+    set_fast_cols(w);
     return 1;
 }
 
@@ -212,12 +222,13 @@ static void field_slow(csv_worker *w, const char *s, size_t len)
     w->out[m][w->base + w->row] = (float)v;
 }
 
-static void on_field(void *data, size_t len, void *ctx)
+/* on_field for every field its inline part does not take: the short numbers
+ * of every other shape here, then the full rules (field_slow). Kept out of
+ * line so that on_field's own path makes no call and saves no registers. */
+static __attribute__((noinline)) void on_field_rest(csv_worker *w, const char *s, size_t len)
 {
-    csv_worker *w = ctx;
-    const char *s = data;
-    /* the common field: a channel value in a row within the capacity, a short
-     * plain number in range; everything else (and every error) goes the long way */
+    /* a channel value in a row within the capacity, a short plain number in
+     * range; everything else (and every error) goes the long way */
     size_t c = w->col;
     if (!w->halt && len != 0 && c < w->ncols && w->row < w->cap) {
         const struct fast_col *fc = &w->fc[c];
@@ -245,6 +256,49 @@ static void on_field(void *data, size_t len, void *ctx)
     field_slow(w, s, len);
 }
 
+static void on_field(void *data, size_t len, void *ctx)
+{
+    csv_worker *w = ctx;
+    const char *s = data;
+    size_t c = w->col;
+#if TF_SWAR_DIGITS && defined(FLT_EVAL_METHOD) && FLT_EVAL_METHOD == 0
+    /* the common field, in printf's %e form (tf_scan_eform), of a channel or
+     * the time column, in a row within the capacity (fast_cols is 0 when the
+     * row is halted or the capacity reached): the same value and resolution
+     * as on_field_rest would find */
+    if (c < w->fast_cols && len != 0) {
+        const struct fast_col *fc = &w->fc[c];
+        tf_short_dec d;
+        d.neg = *s == '-';
+        if (tf_scan_eform(s + (d.neg | (*s == '+')), s + len, w->decimal, &d)) {
+            if (fc->map >= 0 && tf_short_float(&d, fc->factor, &fc->dst[w->row])) {
+                w->col = c + 1;
+                return;
+            }
+            double v = tf_short_value(&d);
+            if (fc->map >= 0) {
+                v *= fc->factor;
+                if (fabs(v) <= FLT_MAX) { /* false for infinities too */
+                    fc->dst[w->row] = (float)v;
+                    w->col = c + 1;
+                    return;
+                }
+            } else if (fc->map == MAP_TIME && d.m != 0) {
+                long last = tf_csv_short_last(&d, w->time_sig);
+                if (last >= -40 && last <= 40) {
+                    w->t = v * w->time_factor;
+                    w->q = tf_csv_pow10_table[last + 40] * w->time_factor;
+                    w->have_t = 1;
+                    w->col = c + 1;
+                    return;
+                }
+            }
+        }
+    }
+#endif
+    on_field_rest(w, s, len);
+}
+
 static void on_row(int term, void *ctx)
 {
     csv_worker *w = ctx;
@@ -258,8 +312,10 @@ static void on_row(int term, void *ctx)
     w->col = 0;
     w->trail = 0;
     if (fields == 0 || w->halt) {
-        if (w->comment_row)
+        if (w->comment_row) {
             w->halt = w->comment_row = 0;
+            set_fast_cols(w);
+        }
         w->have_t = 0;
         w->line++;
         return;
@@ -283,6 +339,8 @@ static void on_row(int term, void *ctx)
     }
     w->row++;
     w->line++;
+    if (w->row >= w->cap)
+        set_fast_cols(w);
 }
 
 /* ---- a window of the file, read into a buffer ---- */
@@ -641,6 +699,7 @@ static tf_status run_parse(const tf_csv_source *src, const tf_csv_layout *lay, c
         }
         if (st == TF_OK && lay->time_col >= 0)
             st = tf_time_acc_init(&w[i].time, lay->t_ref, lay->d_ref, w[i].cap, err);
+        set_fast_cols(&w[i]);
     }
     if (st == TF_OK)
         run_workers(w, *nw, parse_part);

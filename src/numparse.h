@@ -58,24 +58,14 @@ static inline unsigned tf_swar_digits(const char *p, uint64_t *value)
 /* The rest of tf_scan_short for any other text, from p (after the sign) to end. */
 int tf_scan_short_rest(const char *p, const char *end, char decimal, tf_short_dec *d);
 
-/* Read the whole field s[0..len) when it is [sign] digits [mark digits]
- * [e|E [sign] digits] with 1 to 15 digits and a decimal exponent within
- * -22 .. 22 after the fraction is taken out: returns 0 and fills d. Returns -1
- * for anything else (which may still be a number: take tf_parse_double). The
- * shape a scope prints (`-1.23456e-03`) is read inline from both ends; other
- * texts take tf_scan_short_rest: a short integer part digit by digit, the
- * fraction eight bytes at once, a two-digit exponent without a loop. */
-static inline int tf_scan_short(const char *s, size_t len, char decimal, tf_short_dec *d)
-{
-    if (len == 0)
-        return -1;
-    const char *p = s, *end = s + len;
-    d->neg = *p == '-';
-    p += d->neg | (*p == '+');
 #if TF_SWAR_DIGITS
-    /* printf's %e with 4 to 8 fraction digits and a two-digit exponent
-     * ("-1.23456e-03"): both ends known from the length, one eight-byte step
-     * for the fraction; the same m and e as the general reading below */
+/* printf's %e with 4 to 8 fraction digits and a two-digit exponent
+ * ("1.23456e-03"), from p (after the sign) to end: both ends known from the
+ * length, one eight-byte step for the fraction. Returns 1 and sets d->m and
+ * d->e (the same as tf_scan_short_rest would) when the text has that shape and
+ * its exponent after the fraction is taken out lies within -22 .. 22; else 0. */
+static inline int tf_scan_eform(const char *p, const char *end, char decimal, tf_short_dec *d)
+{
     if (end - p >= 10 && (end[-4] == 'e' || end[-4] == 'E') &&
         (end[-3] == '-' || end[-3] == '+') && (unsigned)(*p - '0') < 10 && p[1] == decimal) {
         static const uint64_t p10e[9] = {1, 10, 100, 1000, 10000, 100000, 1000000, 10000000,
@@ -88,12 +78,33 @@ static inline int tf_scan_short(const char *s, size_t len, char decimal, tf_shor
             long x = (long)(a * 10 + b);
             long e = (end[-3] == '-' ? -x : x) - (long)nf;
             if (e < -22 || e > 22)
-                return -1;
+                return 0;
             d->m = (uint64_t)(*p - '0') * p10e[nf] + v;
             d->e = e;
-            return 0;
+            return 1;
         }
     }
+    return 0;
+}
+#endif
+
+/* Read the whole field s[0..len) when it is [sign] digits [mark digits]
+ * [e|E [sign] digits] with 1 to 15 digits and a decimal exponent within
+ * -22 .. 22 after the fraction is taken out: returns 0 and fills d. Returns -1
+ * for anything else (which may still be a number: take tf_parse_double). The
+ * shape a scope prints (`-1.23456e-03`) is read inline (tf_scan_eform); other
+ * texts take tf_scan_short_rest: a short integer part digit by digit, the
+ * fraction eight bytes at once, a two-digit exponent without a loop. */
+static inline int tf_scan_short(const char *s, size_t len, char decimal, tf_short_dec *d)
+{
+    if (len == 0)
+        return -1;
+    const char *p = s, *end = s + len;
+    d->neg = *p == '-';
+    p += d->neg | (*p == '+');
+#if TF_SWAR_DIGITS
+    if (tf_scan_eform(p, end, decimal, d))
+        return 0;
 #endif
     return tf_scan_short_rest(p, end, decimal, d);
 }
@@ -104,6 +115,40 @@ static inline double tf_short_value(const tf_short_dec *d)
     double v = (double)d->m; /* exact: m < 10^15 < 2^53 */
     v = d->e < 0 ? v / tf_pow10_exact[-d->e] : v * tf_pow10_exact[d->e];
     return d->neg ? -v : v;
+}
+
+/* Nearest doubles of 10^-k, k = 0 .. 22 (10^-k itself is not a double for k >= 1). */
+extern const double tf_pow10_inv[23];
+
+/* The single-precision sample (float)(tf_short_value(d) * factor) without the
+ * division, when that can be decided: returns 1 and stores it, or 0 (then
+ * take the exact route). For e < 0 the quotient m / 10^k (k = -e) is replaced
+ * by the product r = m * tf_pow10_inv[k]. With u = 2^-53, r = x(1 + t),
+ * |t| <= 2u + u^2, for the exact x = m / 10^k, while the correctly rounded
+ * quotient q = x(1 + t'), |t'| <= u: so |r - q| <= 3u|x|, at most 3 ulp of r
+ * and, after the one more rounding of the product by factor, at most 7 ulp
+ * of the result p (one ulp of p >= u|p|). Both then round to the same float
+ * unless a float rounding boundary (a point halfway between two adjacent
+ * floats: the low 29 of the 52 mantissa bits equal to 2^28) lies within 7
+ * ulp of p; results within 32 ulp of one, and results outside the normal
+ * float range, take the exact route. The chance of that is about 1e-7 per
+ * value. Needs IEEE double arithmetic rounding once per operation (as the
+ * fast path of tf_parse_field). */
+static inline int tf_short_float(const tf_short_dec *d, double factor, float *out)
+{
+    if (d->e >= 0) /* one exact multiplication: as tf_short_value */
+        return 0;
+    double p = (double)d->m * tf_pow10_inv[-d->e];
+    p = (d->neg ? -p : p) * factor;
+    uint64_t b;
+    memcpy(&b, &p, sizeof b);
+    uint64_t a = b & 0x7fffffffffffffffu;
+    /* 2^-125 <= |p| <= 2^127: both results normal floats, far from overflow */
+    if (a < 0x3820000000000000u || a > 0x47e0000000000000u ||
+        (b & 0x1fffffffu) - (0x10000000u - 32u) < 64u)
+        return 0;
+    *out = (float)p;
+    return 1;
 }
 
 /* The whole field s[0..len) as a number: returns 0 and the correctly rounded

@@ -521,6 +521,7 @@ static void check_python_dialect(const char *dialect)
 }
 
 static void test_import_csv_python_excel(void **state) { (void)state; check_python_dialect("excel"); }
+static void test_import_csv_python_excel_e(void **state) { (void)state; check_python_dialect("excel-e"); }
 static void test_import_csv_python_excel_tab(void **state) { (void)state; check_python_dialect("excel-tab"); }
 static void test_import_csv_python_unix(void **state) { (void)state; check_python_dialect("unix"); }
 static void test_import_csv_python_semicolon(void **state) { (void)state; check_python_dialect("semicolon-quoted"); }
@@ -766,6 +767,7 @@ int main(void)
         cmocka_unit_test(test_import_csv_huge_line),
         cmocka_unit_test(test_import_csv_channel_options),
         cmocka_unit_test(test_import_csv_python_excel),
+        cmocka_unit_test(test_import_csv_python_excel_e),
         cmocka_unit_test(test_import_csv_python_excel_tab),
         cmocka_unit_test(test_import_csv_python_unix),
         cmocka_unit_test(test_import_csv_python_semicolon),

@@ -364,6 +364,61 @@ static void test_numparse_field_vs_python(void **state)
     assert_int_equal(i, n);
 }
 
+/* One check of tf_short_float: when it decides, its float must equal the
+ * float of the correctly rounded quotient (glibc strtod_l, correctly rounded:
+ * ISO C Annex F) times factor. Returns 1 when it decided. */
+static int check_short_float(const char *text, double factor)
+{
+    tf_short_dec d;
+    if (tf_scan_short(text, strlen(text), '.', &d) != 0)
+        fail_msg("'%s': not a short decimal", text);
+    size_t used;
+    float want = (float)(ref_strtod(text, &used) * factor), got = -1;
+    if (!tf_short_float(&d, factor, &got))
+        return 0;
+    if (memcmp(&got, &want, sizeof got) != 0)
+        fail_msg("'%s' x %.17g: got %a, want %a", text, factor, (double)got, (double)want);
+    return 1;
+}
+
+/* The division-free single-precision route (see tf_short_float): random
+ * short decimals, and decimals printed near the points halfway between two
+ * adjacent floats, where only the exact route may decide. */
+static void test_numparse_short_float_vs_strtod(void **state)
+{
+    (void)state;
+    static const double factors[] = {1, 1000, 1e-3, 1e6, 2.5, 0.1, -1, 3.0517578125e-5};
+    char buf[64];
+    size_t decided = 0, near = 0, near_decided = 0;
+    for (int i = 0; i < 400000; i++) {
+        uint64_t m = next_u64() % 1000000000000000ull + 1;
+        int k = (int)(next_u64() % 22) + 1;
+        snprintf(buf, sizeof buf, "%s%llue-%d", next_u64() & 1 ? "-" : "", (unsigned long long)m, k);
+        decided += (size_t)check_short_float(buf, factors[i % 8]);
+    }
+    assert_true(decided > 399000); /* the guard band is narrow */
+    for (int i = 0; i < 200000; i++) {
+        /* a float f, the exact halfway point h to the next float up, and
+         * doubles a few ulp around h, printed to 15 significant digits */
+        float f = ldexpf(1.0f + (float)(next_u64() % (1u << 23)) / 8388608.0f,
+                         (int)(next_u64() % 110) - 70);
+        double h = ((double)f + (double)nextafterf(f, INFINITY)) / 2;
+        for (int step = -3; step <= 3; step++) {
+            double x = h;
+            for (int s = 0; s < (step < 0 ? -step : step); s++)
+                x = nextafter(x, step < 0 ? -INFINITY : INFINITY);
+            snprintf(buf, sizeof buf, "%.14e", x);
+            tf_short_dec d;
+            if (tf_scan_short(buf, strlen(buf), '.', &d) != 0)
+                continue; /* exponent beyond the fast path */
+            near++;
+            near_decided += (size_t)check_short_float(buf, 1.0);
+        }
+    }
+    assert_true(near > 100000);
+    assert_true(near_decided < near); /* some met the guard band and went the exact way */
+}
+
 int main(void)
 {
     c_locale = newlocale(LC_ALL_MASK, "C", (locale_t)0);
@@ -377,6 +432,7 @@ int main(void)
         cmocka_unit_test(test_numparse_field_shapes),
         cmocka_unit_test(test_numparse_field_random_vs_strtod),
         cmocka_unit_test(test_numparse_field_vs_python),
+        cmocka_unit_test(test_numparse_short_float_vs_strtod),
     };
     int r = cmocka_run_group_tests(tests, NULL, NULL);
     freelocale(c_locale);

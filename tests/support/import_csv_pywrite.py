@@ -4,7 +4,8 @@
 Usage: import_csv_pywrite.py DIALECT ROWS SEED OUT.csv OUT.expected
 
 Writes two metadata rows, a header and ROWS data rows (time + 3 channels) with
-the csv module in the named dialect, and OUT.expected: the first line
+the csv module in the named dialect (excel-e: channels printed with %.Ne,
+N = 3 .. 8, as scopes print them), and OUT.expected: the first line
 "t0 dt", then per row the three channel values rounded to float32 as hex
 floats (float.hex of struct-packed '<f', i.e. IEEE round to nearest).
 """
@@ -25,6 +26,7 @@ def main(dialect, rows, seed, out, expected):
     kw = {
         'excel': dict(dialect='excel'),
         'excel-tab': dict(dialect='excel-tab'),
+        'excel-e': dict(dialect='excel'),
         'unix': dict(dialect='unix'),
         'semicolon-quoted': dict(delimiter=';', quoting=csv.QUOTE_ALL, lineterminator='\n'),
         'semicolon-decimal-comma': dict(delimiter=';', lineterminator='\r'),
@@ -45,7 +47,11 @@ def main(dialect, rows, seed, out, expected):
                     x = float(rng.randint(-1000, 1000))
                 vals.append(x)
             tt = repr(t) if dialect in ('excel', 'unix') else '%.9e' % t
-            texts = [repr(x) for x in vals]
+            if dialect == 'excel-e':
+                texts = ['%.*e' % (rng.randint(3, 8), x) for x in vals]
+                vals = [float(s) for s in texts]
+            else:
+                texts = [repr(x) for x in vals]
             if comma:
                 tt = tt.replace('.', ',')
                 texts = [s.replace('.', ',') for s in texts]
