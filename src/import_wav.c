@@ -9,7 +9,6 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
-#include <sys/mman.h>
 #include <sys/stat.h>
 #include <unistd.h>
 
@@ -288,22 +287,6 @@ static tf_status fill_gaps(const char *path, tf_channel *c, size_t n, tf_error *
     return TF_OK;
 }
 
-/* Ask for transparent huge pages on a large sample array: filling 10^7
- * samples per channel then takes far fewer page faults. Only a hint. */
-static void hint_huge(void *p, size_t bytes)
-{
-#if defined(MADV_HUGEPAGE)
-    const uintptr_t huge = (uintptr_t)2 << 20;
-    uintptr_t a = ((uintptr_t)p + huge - 1) & ~(huge - 1);
-    uintptr_t e = ((uintptr_t)p + bytes) & ~(huge - 1);
-    if (e > a)
-        (void)madvise((void *)a, (size_t)(e - a), MADV_HUGEPAGE);
-#else
-    (void)p;
-    (void)bytes;
-#endif
-}
-
 /* De-interleave one block into the kept channels, scaled to physical units. */
 static size_t deinterleave(const float *buf, size_t got, size_t nchan, const wav_chan *ch,
                            tf_capture *cap, size_t pos, int check_finite)
@@ -448,7 +431,6 @@ static tf_status read_frames(const char *path, SNDFILE *sf, const SF_INFO *info,
         if (ch[i].dest < 0)
             continue;
         tf_channel *c = &cap->ch[ch[i].dest];
-        hint_huge(c->samples, frames * sizeof(float));
         snprintf(c->name, TF_NAME_SIZE, "%s", ch[i].name);
         snprintf(c->unit, TF_UNIT_SIZE, "%s", ch[i].full_scale > 0 ? ch[i].unit : "FS");
         c->full_scale = ch[i].full_scale > 0 ? ch[i].full_scale : 1.0;
