@@ -3,6 +3,7 @@
 
 #include <pthread.h>
 #include <stdarg.h>
+#include <stdint.h>
 #include <stdatomic.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -73,10 +74,20 @@ tf_status tf_capture_truncate(tf_capture *cap, size_t n, tf_error *err)
 {
     if (n > cap->n)
         return tf_error_set(err, TF_ERR_INTERNAL, "truncate to %zu > %zu samples", n, cap->n);
+    return tf_capture_resize(cap, n, err);
+}
+
+tf_status tf_capture_resize(tf_capture *cap, size_t n, tf_error *err)
+{
+    if (n > SIZE_MAX / sizeof(float))
+        return tf_error_set(err, TF_ERR_NOMEM, "%zu samples do not fit in memory", n);
     for (size_t c = 0; c < cap->nchan; c++) {
         float *p = realloc(cap->ch[c].samples, (n ? n : 1) * sizeof(float));
         if (p)
             cap->ch[c].samples = p;
+        else if (n > cap->n) /* a failed shrink keeps the larger block, which is harmless */
+            return tf_error_set(err, TF_ERR_NOMEM, "out of memory for %zu samples x %zu "
+                                "channels", n, cap->nchan);
     }
     cap->n = n;
     return TF_OK;

@@ -178,7 +178,7 @@ typedef struct tf_time_acc {
     size_t nblocks, cap_blocks;
 } tf_time_acc;
 
-/* Prepare for up to max_rows values. TF_ERR_NOMEM on failure. */
+/* Prepare for about max_rows values (more make room as they come). TF_ERR_NOMEM on failure. */
 tf_status tf_time_acc_init(tf_time_acc *a, double t_ref, double d_ref, size_t max_rows,
                            tf_error *err);
 void tf_time_acc_free(tf_time_acc *a);
@@ -194,14 +194,17 @@ static inline double tf_time_step_tolerance(double qa, double qb)
 
 enum { TF_TIME_NOT_LATER, TF_TIME_BAD_STEP, TF_TIME_TOO_MANY };
 
+/* Room for twice the blocks: 0, or -1 when out of memory. */
+int tf_time_acc_grow(tf_time_acc *a);
+
 /* Write the message of tf_time_acc_add's failure why into msg; returns -1. */
 int tf_time_acc_fail(const tf_time_acc *a, int why, double t, double d, double tol, char *msg,
                      size_t msg_size);
 
 /* Add the value t printed as text (resolution q) from line. Returns 0, or -1
  * after writing "expected ..., found ..." (without position) into msg when the
- * step from the previous value is not the uniform step. Inline: it runs once
- * per row. */
+ * step from the previous value is not the uniform step, -2 (with msg) when out
+ * of memory. Inline: it runs once per row. */
 static inline int tf_time_acc_add(tf_time_acc *a, double t, double q, size_t line, char *msg,
                                   size_t msg_size)
 {
@@ -234,8 +237,10 @@ static inline int tf_time_acc_add(tf_time_acc *a, double t, double q, size_t lin
     a->sum_u += u;
     a->sum_ku += (double)k * u;
     size_t b = k / TF_TIME_BLOCK;
-    if (b >= a->cap_blocks) /* cannot happen when max_rows was honest */
-        return tf_time_acc_fail(a, TF_TIME_TOO_MANY, t, 0, 0, msg, msg_size);
+    if (b >= a->cap_blocks && tf_time_acc_grow(a) != 0) {
+        tf_time_acc_fail(a, TF_TIME_TOO_MANY, t, 0, 0, msg, msg_size);
+        return -2;
+    }
     if (b == a->nblocks) {
         tf_time_block *nb = &a->blocks[a->nblocks++];
         nb->hi = -HUGE_VAL;

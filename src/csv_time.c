@@ -94,6 +94,17 @@ tf_status tf_time_acc_init(tf_time_acc *a, double t_ref, double d_ref, size_t ma
     return TF_OK;
 }
 
+int tf_time_acc_grow(tf_time_acc *a)
+{
+    size_t cap = a->cap_blocks * 2;
+    tf_time_block *grown = cap > a->cap_blocks ? realloc(a->blocks, cap * sizeof *grown) : NULL;
+    if (!grown)
+        return -1;
+    a->blocks = grown;
+    a->cap_blocks = cap;
+    return 0;
+}
+
 void tf_time_acc_free(tf_time_acc *a)
 {
     free(a->blocks);
@@ -111,8 +122,7 @@ int tf_time_acc_fail(const tf_time_acc *a, int why, double t, double d, double t
                  "found a step of %.6g s (%.10g s after %.10g s)",
                  a->d_ref, tol, d, t, a->t_prev);
     else
-        snprintf(msg, msg_size, "expected at most %zu rows, found more",
-                 a->cap_blocks * TF_TIME_BLOCK);
+        snprintf(msg, msg_size, "out of memory for the time base after %zu rows", a->n);
     return -1;
 }
 

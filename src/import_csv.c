@@ -14,9 +14,6 @@
 #include <string.h>
 #include <sys/stat.h>
 #include <unistd.h>
-#if defined(__SSE2__) && defined(__x86_64__)
-#include <emmintrin.h>
-#endif
 
 #include "csv_internal.h"
 #include "numparse.h"
@@ -33,26 +30,26 @@ typedef struct csv_job {
     const tf_csv_layout *lay;
     const tf_import_options *opt;
     const int *map;                      /* per file column: channel index, MAP_TIME or MAP_SKIP */
-    float **out;                         /* per channel: the capture's samples */
     const double *factor;                /* per channel: unit prefix factor from the header */
     size_t nout;
     size_t total;                        /* bytes to parse */
+    size_t nparts;
     atomic_size_t done;
     atomic_int abort;                    /* the first part failed: later parts may stop */
+    atomic_int quoted;                   /* a '"' in a split file: parse it again whole */
 } csv_job;
 
 /* One file column as on_field's fast path sees it: one load finds all. */
 struct fast_col {
     int map;                             /* as csv_job.map */
     double factor;                       /* the channel's unit factor */
-    float *dst;                          /* the channel's samples from this part's first row */
+    float *dst;                          /* the channel's samples of the current region */
 };
 
 typedef struct csv_worker {
     csv_job *job;
     /* copies of what every field needs, kept next to the row state */
     const int *map;
-    float **out;
     struct fast_col *fc;                 /* per file column: what on_field's fast path needs */
     const double *factor;
     size_t ncols;
@@ -63,24 +60,32 @@ typedef struct csv_worker {
     int time_sig;                        /* the layout's time_sig */
     double time_factor;                  /* the time column's unit factor */
     size_t begin, end;                   /* byte range [begin, end), starting at a line */
-    size_t line;                         /* line number of the row being read */
-    size_t base, cap;                    /* global index of local row 0; rows allowed */
-    size_t row;                          /* rows stored */
+    size_t line;                         /* line number of the row being read: from
+                                            data_line in the first part, from 1 in a later
+                                            one (made absolute once the parts before it
+                                            have been read: shift_lines) */
+    /* Rows go first to the part's window of the capture's arrays (win_cap rows
+     * from index base, sized from an estimate), then to overflow arrays of its
+     * own that grow as needed; assemble() puts them in place. */
+    size_t base, win_cap, win_rows;      /* window; rows in it once it is full */
+    float **cur;                         /* per channel: the current region */
+    float **ovf;                         /* per channel: overflow arrays (NULL: none yet) */
+    size_t cap;                          /* rows the current region holds */
+    size_t row;                          /* rows stored in the current region */
     size_t col;                          /* fields seen in the current row */
     int trail;                           /* field ncols was empty (a trailing delimiter) */
     int have_t;                          /* the current row's time value is in t/q */
     double t, q;
     int prev_cr;
     int first;                           /* the first part: reports progress */
-    size_t terms;                        /* line ends in the range (counting pass) */
-    int quotes;                          /* a '"' in the range */
     tf_time_acc time;
     size_t *gaps, *gap_line;             /* per channel */
     tf_status status;
     int halt;                            /* status set or comment_row: ignore further fields */
     int comment_row;                     /* the row's first field starts with the comment mark */
     char comment;                        /* '#', or the header's own comment mark */
-    char msg[TF_ERROR_MSG_SIZE];
+    size_t err_line, err_col;            /* where the failure is (err_line as line) */
+    char msg[TF_ERROR_MSG_SIZE];         /* what it is: "expected ..., found ..." */
 } csv_worker;
 
 /* Keep fast_cols in step with halt, row and cap: call after changing any. */
@@ -96,12 +101,11 @@ static void fail(csv_worker *w, tf_status code, size_t col, const char *fmt, ...
 {
     if (w->status)
         return;
-    int k = snprintf(w->msg, sizeof w->msg, "%s:%zu:%zu: ", w->job->src->path, w->line, col);
-    if (k < 0 || (size_t)k >= sizeof w->msg)
-        k = 0;
+    w->err_line = w->line;
+    w->err_col = col;
     va_list ap;
     va_start(ap, fmt);
-    vsnprintf(w->msg + k, sizeof w->msg - (size_t)k, fmt, ap);
+    vsnprintf(w->msg, sizeof w->msg, fmt, ap);
     va_end(ap);
     w->status = code;
     w->halt = 1;
@@ -131,7 +135,7 @@ static void gap(csv_worker *w, int m, size_t c, const char *s, size_t len)
                  tf_error_excerpt(ex, sizeof ex, s, (unsigned)len, TF_CSV_EXCERPT));
         return;
     }
-    w->out[m][w->base + w->row] = NAN;
+    w->cur[m][w->row] = NAN;
     if (w->gaps[m]++ == 0)
         w->gap_line[m] = w->line;
 }
@@ -181,11 +185,8 @@ static void field_slow(csv_worker *w, const char *s, size_t len)
         comment_start(w, c, s, len);
         return;
     }
-    if (w->row >= w->cap) {
-        fail(w, TF_ERR_DATA, c + 1, "expected %s line ends throughout, found another kind",
-             w->job->lay->line_end);
+    if (w->row >= w->cap) /* only after the region could not grow (halt) */
         return;
-    }
     if (m == MAP_TIME) {
         time_field(w, c, s, len);
         return;
@@ -219,7 +220,7 @@ static void field_slow(csv_worker *w, const char *s, size_t len)
              "found '%s'", tf_error_excerpt(ex, sizeof ex, s, (unsigned)len, TF_CSV_EXCERPT));
         return;
     }
-    w->out[m][w->base + w->row] = (float)v;
+    w->cur[m][w->row] = (float)v;
 }
 
 /* on_field for every field its inline part does not take: the short numbers
@@ -299,6 +300,44 @@ static void on_field(void *data, size_t len, void *ctx)
     on_field_rest(w, s, len);
 }
 
+/* Point the fast path at the current region of every channel. */
+static void aim_columns(csv_worker *w)
+{
+    for (size_t c = 0; c < w->ncols; c++)
+        if (w->fc[c].map >= 0)
+            w->fc[c].dst = w->cur[w->fc[c].map];
+}
+
+/* The current region is full: go on in the overflow arrays, made at an eighth
+ * of the window (at least 256 rows) and doubled as they fill. */
+static void next_region(csv_worker *w)
+{
+    size_t nout = w->job->nout;
+    int first = !w->ovf;
+    size_t cap = first ? (w->win_cap / 8 > 256 ? w->win_cap / 8 : 256) : 2 * w->cap;
+    if (first && !(w->ovf = calloc(nout ? nout : 1, sizeof *w->ovf))) {
+        fail(w, TF_ERR_NOMEM, w->col + 1, "out of memory for the samples");
+        return;
+    }
+    for (size_t m = 0; m < nout; m++) {
+        float *p = cap <= SIZE_MAX / sizeof(float) ? realloc(w->ovf[m], cap * sizeof(float)) : NULL;
+        if (!p) {
+            fail(w, TF_ERR_NOMEM, w->col + 1, "out of memory for the samples");
+            return;
+        }
+        w->ovf[m] = p;
+    }
+    if (first) {
+        w->win_rows = w->row;
+        w->row = 0;
+    }
+    w->cap = cap;
+    for (size_t m = 0; m < nout; m++)
+        w->cur[m] = w->ovf[m];
+    aim_columns(w);
+    set_fast_cols(w);
+}
+
 static void on_row(int term, void *ctx)
 {
     csv_worker *w = ctx;
@@ -331,8 +370,10 @@ static void on_row(int term, void *ctx)
     if (w->have_t) {
         char why[400];
         w->have_t = 0;
-        if (tf_time_acc_add(&w->time, w->t, w->q, w->line, why, sizeof why) != 0) {
-            fail(w, TF_ERR_DATA, (size_t)w->job->lay->time_col + 1, "%s", why);
+        int r = tf_time_acc_add(&w->time, w->t, w->q, w->line, why, sizeof why);
+        if (r != 0) {
+            fail(w, r == -2 ? TF_ERR_NOMEM : TF_ERR_DATA, (size_t)w->job->lay->time_col + 1,
+                 "%s", why);
             w->line++;
             return;
         }
@@ -340,7 +381,7 @@ static void on_row(int term, void *ctx)
     w->row++;
     w->line++;
     if (w->row >= w->cap)
-        set_fast_cols(w);
+        next_region(w);
 }
 
 /* ---- a window of the file, read into a buffer ---- */
@@ -370,48 +411,7 @@ static int view_get(const tf_csv_source *src, size_t off, size_t len, view *v)
     return 0;
 }
 
-/* ---- the two passes over a part: count line ends, then parse ---- */
-
-/* How many bytes of p[0..n) equal c. SSE2 (on every x86-64): 16 byte counters,
- * emptied into 64-bit sums before they can wrap; elsewhere a plain loop. */
-static size_t count_byte(const char *p, size_t n, char c)
-{
-    size_t count = 0, i = 0;
-#if defined(__SSE2__) && defined(__x86_64__)
-    const __m128i want = _mm_set1_epi8(c), zero = _mm_setzero_si128();
-    while (n - i >= 16) {
-        size_t blocks = (n - i) / 16 < 255 ? (n - i) / 16 : 255;
-        __m128i acc = zero;
-        for (size_t b = 0; b < blocks; b++, i += 16) /* a match is -1: subtract it */
-            acc = _mm_sub_epi8(acc, _mm_cmpeq_epi8(_mm_loadu_si128((const __m128i *)(p + i)), want));
-        __m128i sums = _mm_sad_epu8(acc, zero);
-        count += (size_t)_mm_cvtsi128_si64(sums) + (size_t)_mm_cvtsi128_si64(_mm_unpackhi_epi64(sums, sums));
-    }
-#endif
-    for (; i < n; i++)
-        count += p[i] == c;
-    return count;
-}
-
-static void *count_part(void *arg)
-{
-    csv_worker *w = arg;
-    char term = w->job->lay->term;
-    view v = {0};
-    for (size_t off = w->begin; off < w->end;) {
-        size_t want = w->end - off < CHUNK ? w->end - off : CHUNK;
-        if (view_get(w->job->src, off, want, &v) != 0) {
-            w->status = TF_ERR_IO;
-            snprintf(w->msg, sizeof w->msg, "%s: cannot read at byte %zu", w->job->src->path, off);
-            break;
-        }
-        w->terms += count_byte(v.p, want, term);
-        w->quotes |= memchr(v.p, '"', want) != NULL;
-        off += want;
-    }
-    free(v.buf);
-    return NULL;
-}
+/* ---- parsing a part ---- */
 
 static void report_progress(csv_worker *w, size_t got)
 {
@@ -436,11 +436,16 @@ static void *parse_part(void *arg)
     csv_set_realloc_func(&p, tf_csv_capped_realloc);
     csv_set_blk_size(&p, 65536);
     for (size_t off = w->begin; off < w->end && !w->status;) {
-        if (!w->first && atomic_load(&job->abort))
+        if ((!w->first && atomic_load(&job->abort)) || atomic_load(&job->quoted))
             break;
         size_t want = w->end - off < CHUNK ? w->end - off : CHUNK;
         if (view_get(job->src, off, want, &v) != 0) {
             fail(w, TF_ERR_IO, 1, "cannot read the file at byte %zu", off);
+            break;
+        }
+        /* a quoted field may hold a line end, so a split file must have none */
+        if (job->nparts > 1 && memchr(v.p, '"', want)) {
+            atomic_store(&job->quoted, 1);
             break;
         }
         size_t used = csv_parse(&p, v.p, want, on_field, on_row, w);
@@ -451,7 +456,7 @@ static void *parse_part(void *arg)
         off += want;
         report_progress(w, want);
     }
-    if (!w->status)
+    if (!w->status && !atomic_load(&job->quoted))
         csv_fini(&p, on_field, on_row, w);
     csv_free(&p);
     free(v.buf);
@@ -618,13 +623,15 @@ static size_t split_point(const tf_csv_source *src, const tf_csv_layout *lay)
     return 0;
 }
 
+/* Split the data at a line end near the middle for two parser threads, or
+ * keep it whole (whole set, one thread wanted, a small file, or quotes seen). */
 static size_t plan_parts(const tf_csv_source *src, const tf_csv_layout *lay,
-                         const tf_import_options *opt, csv_worker *w, csv_job *job)
+                         const tf_import_options *opt, int whole, csv_worker *w, csv_job *job)
 {
     long cores = sysconf(_SC_NPROCESSORS_ONLN);
     size_t want = opt->threads > 0 ? (size_t)opt->threads : (cores > 1 ? 2 : 1);
     size_t split = 0;
-    if (want > 1 && !lay->quotes && src->size - lay->data_offset >= TF_CSV_MIN_SPLIT)
+    if (!whole && want > 1 && !lay->quotes && src->size - lay->data_offset >= TF_CSV_MIN_SPLIT)
         split = split_point(src, lay);
     size_t n = split && split < src->size ? 2 : 1;
     for (size_t i = 0; i < n; i++) {
@@ -638,46 +645,73 @@ static size_t plan_parts(const tf_csv_source *src, const tf_csv_layout *lay,
         w[1].begin = split;
         w[1].end = src->size;
     }
+    job->nparts = n;
     return n;
 }
 
-static tf_status run_parse(const tf_csv_source *src, const tf_csv_layout *lay, csv_job *job,
-                           csv_worker *w, size_t *nw, tf_capture *cap, tf_error *err)
+/* Rows to expect in bytes of data: from the line ends in the first 64 KiB of
+ * the data, with 1/32 and 256 rows to spare (the window; more rows overflow,
+ * which costs a copy, not a failure), and never more than a row of ncols
+ * bytes (its delimiters and line end) allows, which bounds the window of a
+ * file of blank lines. */
+static size_t window_rows(const tf_csv_source *src, const tf_csv_layout *lay, size_t bytes)
 {
-    run_workers(w, *nw, count_part);
-    for (size_t i = 0; i < *nw; i++)
-        if (w[i].status)
-            return tf_error_set(err, w[i].status, "%s", w[i].msg);
-    if (*nw == 2 && (w[0].quotes || w[1].quotes)) { /* a quoted line end may span the split */
-        w[0].terms += w[1].terms;
-        w[0].end = src->size;
-        *nw = 1;
+    char buf[65536];
+    size_t bound = bytes / lay->ncols + 1, est = bound;
+    ssize_t got = tf_csv_read(src, lay->data_offset, buf, sizeof buf);
+    if (got > 0) {
+        size_t lines = 0;
+        for (const char *p = buf, *e = buf + got; (p = memchr(p, lay->term, (size_t)(e - p)));
+             p++)
+            lines++;
+        /* a partial last line counts as one when the sample is the whole data */
+        if ((size_t)got < sizeof buf && got > 0 && buf[got - 1] != lay->term)
+            lines++;
+        if (lines) {
+            double per = (double)got / (double)lines;
+            double rows = (double)bytes / per;
+            est = rows < (double)bound ? (size_t)rows : bound;
+        }
     }
+    est += est / 32 + 256;
+    return est < bound ? est : bound;
+}
+
+/* Free what a part holds (its arrays, tables and time accumulator). */
+static void free_part(csv_worker *w, size_t nout)
+{
+    if (w->ovf)
+        for (size_t m = 0; m < nout; m++)
+            free(w->ovf[m]);
+    free(w->ovf);
+    free(w->cur);
+    free(w->gaps);
+    free(w->fc);
+    tf_time_acc_free(&w->time);
+    w->ovf = w->cur = NULL;
+    w->gaps = w->gap_line = NULL;
+    w->fc = NULL;
+}
+
+/* Windows in the capture's arrays and the state of every part. */
+static tf_status setup_parts(const tf_csv_source *src, const tf_csv_layout *lay, csv_job *job,
+                             csv_worker *w, size_t nw, tf_capture *cap, tf_error *err)
+{
     size_t total = 0;
-    for (size_t i = 0; i < *nw; i++) {
-        /* rows <= line ends + 1, and a row takes at least ncols bytes (its
-         * delimiters and line end), which bounds memory for a file of blank lines */
-        size_t by_bytes = (w[i].end - w[i].begin) / lay->ncols + 1;
+    for (size_t i = 0; i < nw; i++) {
         w[i].base = total;
-        w[i].cap = w[i].terms + 1 < by_bytes ? w[i].terms + 1 : by_bytes;
-        total += w[i].cap;
+        w[i].win_cap = window_rows(src, lay, w[i].end - w[i].begin);
+        total += w[i].win_cap;
     }
     w[0].line = lay->data_line;
-    if (*nw == 2)
-        w[1].line = lay->data_line + w[0].terms;
+    for (size_t i = 1; i < nw; i++)
+        w[i].line = 1;
     tf_status st = tf_capture_alloc(cap, job->nout, total, err);
     if (st != TF_OK)
         return st;
-    float **out = malloc((job->nout ? job->nout : 1) * sizeof *out);
-    if (!out)
-        return tf_error_set(err, TF_ERR_NOMEM, "out of memory");
-    for (size_t m = 0; m < job->nout; m++)
-        out[m] = cap->ch[m].samples;
-    job->out = out;
-    job->total = src->size - lay->data_offset;
-    for (size_t i = 0; i < *nw && st == TF_OK; i++) {
+    size_t nout = job->nout ? job->nout : 1;
+    for (size_t i = 0; i < nw && st == TF_OK; i++) {
         w[i].map = job->map;
-        w[i].out = out;
         w[i].factor = job->factor;
         w[i].ncols = lay->ncols;
         w[i].space_mode = lay->space_mode;
@@ -685,46 +719,112 @@ static tf_status run_parse(const tf_csv_source *src, const tf_csv_layout *lay, c
         w[i].time_sig = lay->time_sig;
         w[i].time_factor = lay->time_col >= 0 ? lay->cols[lay->time_col].factor : 1;
         w[i].comment = lay->comment ? lay->comment : '#';
-        w[i].gaps = calloc(2 * (job->nout ? job->nout : 1), sizeof(size_t));
+        w[i].gaps = calloc(2 * nout, sizeof(size_t));
+        w[i].cur = calloc(nout, sizeof *w[i].cur);
         w[i].fc = malloc(lay->ncols * sizeof *w[i].fc);
-        if (!w[i].gaps || !w[i].fc)
+        if (!w[i].gaps || !w[i].cur || !w[i].fc) {
             st = tf_error_set(err, TF_ERR_NOMEM, "out of memory");
-        else
-            w[i].gap_line = w[i].gaps + job->nout;
-        for (size_t c = 0; c < lay->ncols && st == TF_OK; c++) {
+            break;
+        }
+        w[i].gap_line = w[i].gaps + nout;
+        for (size_t m = 0; m < job->nout; m++)
+            w[i].cur[m] = cap->ch[m].samples + w[i].base;
+        w[i].cap = w[i].win_cap;
+        for (size_t c = 0; c < lay->ncols; c++) {
             int m = job->map[c];
             w[i].fc[c].map = m;
             w[i].fc[c].factor = m >= 0 ? job->factor[m] : 1;
-            w[i].fc[c].dst = m >= 0 ? out[m] + w[i].base : NULL;
         }
-        if (st == TF_OK && lay->time_col >= 0)
-            st = tf_time_acc_init(&w[i].time, lay->t_ref, lay->d_ref, w[i].cap, err);
+        aim_columns(&w[i]);
+        if (lay->time_col >= 0)
+            st = tf_time_acc_init(&w[i].time, lay->t_ref, lay->d_ref, w[i].win_cap, err);
         set_fast_cols(&w[i]);
     }
-    if (st == TF_OK)
-        run_workers(w, *nw, parse_part);
-    if (st == TF_OK && job->opt->progress && !job->opt->quiet_progress)
-        job->opt->progress(job->opt->progress_ctx, 1.0);
-    free(out);
-    job->out = NULL;
-    for (size_t i = 0; i < *nw && st == TF_OK; i++)
-        if (w[i].status)
-            st = tf_error_set(err, w[i].status, "%s", w[i].msg);
     return st;
 }
 
-/* Close the hole between the parts left by blank lines, and shrink to n rows. */
-static tf_status compact(tf_capture *cap, csv_worker *w, size_t nw, tf_error *err)
+/* Make the relative line numbers of a later part absolute: add shift. */
+static void shift_lines(csv_worker *w, size_t shift)
 {
-    size_t n = w[0].row;
-    for (size_t i = 1; i < nw; i++) {
-        if (w[i].base != n)
-            for (size_t m = 0; m < cap->nchan; m++)
-                memmove(cap->ch[m].samples + n, cap->ch[m].samples + w[i].base,
-                        w[i].row * sizeof(float));
-        n += w[i].row;
+    w->err_line += shift;
+    w->time.line_first += shift;
+    for (size_t b = 0; b < w->time.nblocks; b++) {
+        w->time.blocks[b].hi_line += shift;
+        w->time.blocks[b].lo_line += shift;
     }
+    for (size_t m = 0; m < w->job->nout; m++)
+        if (w->gaps[m])
+            w->gap_line[m] += shift;
+}
+
+/* Put every part's rows in file order at the front of the capture's arrays and
+ * shrink them to the rows read. Windows that move down go first, in order,
+ * then those that move up, in reverse order, so none overwrites rows still to
+ * move; the overflow rows then fill the places left for them. */
+static tf_status assemble(tf_capture *cap, csv_worker *w, size_t nw, tf_error *err)
+{
+    size_t pos[MAX_WORKERS], win[MAX_WORKERS], over[MAX_WORKERS], n = 0;
+    for (size_t i = 0; i < nw; i++) {
+        win[i] = w[i].ovf ? w[i].win_rows : w[i].row;
+        over[i] = w[i].ovf ? w[i].row : 0;
+        pos[i] = n;
+        n += win[i] + over[i];
+    }
+    if (n > cap->n) {
+        tf_status st = tf_capture_resize(cap, n, err);
+        if (st != TF_OK)
+            return st;
+    }
+    for (size_t k = 0; k < 2 * nw; k++) {
+        size_t i = k < nw ? k : 2 * nw - 1 - k;
+        if (k < nw ? pos[i] < w[i].base : pos[i] > w[i].base)
+            for (size_t m = 0; m < cap->nchan; m++)
+                memmove(cap->ch[m].samples + pos[i], cap->ch[m].samples + w[i].base,
+                        win[i] * sizeof(float));
+    }
+    for (size_t i = 0; i < nw; i++)
+        if (over[i])
+            for (size_t m = 0; m < cap->nchan; m++)
+                memcpy(cap->ch[m].samples + pos[i] + win[i], w[i].ovf[m],
+                       over[i] * sizeof(float));
     return tf_capture_truncate(cap, n, err);
+}
+
+/* Parse every part (again as one part when a split file has quotes), report
+ * the first failure in file order, and assemble the rows. */
+static tf_status run_parse(const tf_csv_source *src, const tf_csv_layout *lay, csv_job *job,
+                           csv_worker *w, size_t *nw, tf_capture *cap, tf_error *err)
+{
+    job->total = src->size - lay->data_offset;
+    tf_status st = setup_parts(src, lay, job, w, *nw, cap, err);
+    if (st == TF_OK)
+        run_workers(w, *nw, parse_part);
+    if (st == TF_OK && atomic_load(&job->quoted)) {
+        for (size_t i = 0; i < *nw; i++)
+            free_part(&w[i], job->nout);
+        atomic_store(&job->quoted, 0);
+        atomic_store(&job->done, 0);
+        *nw = plan_parts(src, lay, job->opt, 1, w, job);
+        st = setup_parts(src, lay, job, w, *nw, cap, err);
+        if (st == TF_OK)
+            run_workers(w, *nw, parse_part);
+    }
+    if (st != TF_OK)
+        return st;
+    if (job->opt->progress && !job->opt->quiet_progress)
+        job->opt->progress(job->opt->progress_ctx, 1.0);
+    /* part i > 0 starts at the line after the parts before it (their count is
+     * whole only when they did not fail, and then their failure is reported) */
+    size_t next = w[0].line;
+    for (size_t i = 1; i < *nw && !w[i - 1].status; i++) {
+        shift_lines(&w[i], next - 1);
+        next += w[i].line - 1;
+    }
+    for (size_t i = 0; i < *nw; i++)
+        if (w[i].status)
+            return tf_error_set(err, w[i].status, "%s:%zu:%zu: %s", src->path, w[i].err_line,
+                                w[i].err_col, w[i].msg);
+    return assemble(cap, w, *nw, err);
 }
 
 static tf_status set_time_base(tf_capture *cap, const tf_csv_layout *lay, csv_worker *w,
@@ -845,11 +945,9 @@ static tf_status import_source(const tf_csv_source *src, const tf_import_options
         job.map = map;
         job.factor = factor;
         job.nout = (size_t)nout;
-        nw = plan_parts(src, &lay, opt, w, &job);
+        nw = plan_parts(src, &lay, opt, 0, w, &job);
         st = run_parse(src, &lay, &job, w, &nw, cap, err);
     }
-    if (st == TF_OK)
-        st = compact(cap, w, nw, err);
     if (st == TF_OK)
         st = set_time_base(cap, &lay, w, nw, opt, err);
     if (st == TF_OK) {
@@ -858,11 +956,8 @@ static tf_status import_source(const tf_csv_source *src, const tf_import_options
     }
     if (st == TF_OK)
         st = tf_import_apply_options(cap, opt, err);
-    for (size_t i = 0; i < nw; i++) {
-        free(w[i].gaps);
-        free(w[i].fc);
-        tf_time_acc_free(&w[i].time);
-    }
+    for (size_t i = 0; i < nw; i++)
+        free_part(&w[i], job.nout);
     free(map);
     free(factor);
     tf_csv_layout_free(&lay);

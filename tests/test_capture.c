@@ -43,6 +43,17 @@ static void test_capture_container(void **state)
     assert_int_equal(tf_capture_truncate(cap, 10, &err), TF_OK);
     assert_int_equal(cap->n, 10);
     assert_int_equal(tf_capture_truncate(cap, 11, &err), TF_ERR_INTERNAL);
+    /* a growth keeps the samples there were; a shrink back leaves them */
+    float keep[10];
+    memcpy(keep, cap->ch[1].samples, sizeof keep);
+    assert_int_equal(tf_capture_resize(cap, 200000, &err), TF_OK);
+    assert_int_equal(cap->n, 200000);
+    assert_memory_equal(cap->ch[1].samples, keep, sizeof keep);
+    cap->ch[1].samples[199999] = 7.0f;
+    assert_int_equal(tf_capture_resize(cap, 10, &err), TF_OK);
+    assert_memory_equal(cap->ch[1].samples, keep, sizeof keep);
+    assert_int_equal(tf_capture_resize(cap, SIZE_MAX / 2, &err), TF_ERR_NOMEM);
+    assert_int_equal(cap->n, 10);
     tf_capture_compute_stats(cap);
     /* mean of -1.5, -0.5, 0.5, 1.5 repeated (10 samples: two extra -1.5, -0.5) */
     assert_true(cap->ch[0].stats_valid);

@@ -602,6 +602,167 @@ static void test_import_csv_two_threads(void **state)
     expect_error(path, &one, TF_ERR_DATA, want);
 }
 
+/* Row k of the layout test below: long rows (a channel printed with 13
+ * significant digits) where long(k), else short ones (small integers). The
+ * text of the channel goes to val. */
+static int write_row(FILE *f, size_t k, int is_long, char *val, size_t size)
+{
+    if (is_long)
+        snprintf(val, size, "%.12e", sin((double)k * 1e-3) * 3.0);
+    else
+        snprintf(val, size, "%d", (int)(k % 7) - 3);
+    return fprintf(f, "%.9e,%s\n", (double)k * 1e-7, val);
+}
+
+/* Rows whose length changes along the file, so that the rows each parser
+ * expects from the first 64 KiB are too many or too few: with the first part
+ * longer than expected, the second part, both, and rows that stay as long.
+ * Every value must equal the float of its text (glibc strtod, correctly
+ * rounded), with one thread and with two, and a bad field in the second
+ * part must name its line. */
+static void test_import_csv_parts_of_changing_length(void **state)
+{
+    (void)state;
+    const size_t rows = 600000, head = 2000;
+    for (int layout = 0; layout < 4; layout++) {
+        const char *path = tf_test_tmpfile("changing.csv");
+        FILE *f = fopen(path, "w");
+        assert_non_null(f);
+        fprintf(f, "time_s,a\n");
+        float *want = malloc(rows * sizeof *want);
+        assert_non_null(want);
+        char val[64];
+        for (size_t k = 0; k < rows; k++) {
+            /* 0: long head, short rest (both parts overflow their windows);
+             * 1: long head, short to the middle, long after (the first part
+             *    overflows, the second does not);
+             * 2: long to the middle, short after (the second part's window
+             *    is too large, the first fits);
+             * 3: short head, long rest (both windows too large) */
+            int is_long = layout == 0 ? k < head
+                        : layout == 1 ? k < head || k >= rows / 2
+                        : layout == 2 ? k < rows / 2
+                        : k >= head;
+            write_row(f, k, is_long, val, sizeof val);
+            want[k] = (float)strtod(val, NULL);
+        }
+        fclose(f);
+        tf_import_options one, two;
+        tf_import_options_init(&one);
+        tf_import_options_init(&two);
+        one.threads = 1;
+        two.threads = 2;
+        tf_capture *a = load(path, &one), *b = load(path, &two);
+        assert_int_equal(a->n, rows);
+        assert_int_equal(b->n, rows);
+        assert_samples(&a->ch[0], want, rows);
+        assert_samples(&b->ch[0], want, rows);
+        assert_true(fabs(b->dt_s - 1e-7) < 1e-16);
+        tf_capture_destroy(a);
+        tf_capture_destroy(b);
+        free(want);
+        /* a bad field in the last row: line = header + rows + 1 */
+        f = fopen(path, "a");
+        fputs("6.0e-02,x1\n", f);
+        fclose(f);
+        char msg[128];
+        snprintf(msg, sizeof msg, "changing.csv:%zu:2: expected a number, found 'x1'", rows + 2);
+        expect_error(path, &two, TF_ERR_DATA, msg);
+        expect_error(path, &one, TF_ERR_DATA, msg);
+    }
+}
+
+/* A split file with a quoted field after the first MiB (which detection sees
+ * unquoted) is read again as one part: the quoted field holds line ends, and
+ * the middle of the data, where a split would fall, lies inside it (rows of
+ * one length on both sides). */
+static void test_import_csv_late_quotes(void **state)
+{
+    (void)state;
+    const size_t half = 250000; /* rows before and after: about 10 MB in all */
+    const char *path = tf_test_tmpfile("late-quotes.csv");
+    FILE *f = fopen(path, "w");
+    assert_non_null(f);
+    fprintf(f, "time_s,a,note\n");
+    for (size_t k = 0; k < 2 * half + 1; k++) {
+        fprintf(f, "%.9e,%02d,", (double)(k + 1) * 1e-7, (int)(k % 100));
+        if (k == half) {
+            fputc('"', f);
+            for (int j = 0; j < 2000; j++)
+                fputs("x\n", f);
+            fputs("\"\n", f);
+        } else {
+            fputs("0\n", f);
+        }
+    }
+    fclose(f);
+    tf_import_options two;
+    tf_import_options_init(&two);
+    two.threads = 2;
+    snprintf(two.channels, sizeof two.channels, "a");
+    tf_capture *b = load(path, &two);
+    assert_int_equal(b->n, 2 * half + 1);
+    for (size_t k = 0; k < b->n; k++)
+        if (b->ch[0].samples[k] != (float)(k % 100))
+            fail_msg("row %zu: %g, expected %zu", k, (double)b->ch[0].samples[k], k % 100);
+    tf_capture_destroy(b);
+}
+
+/* Line numbers from the second parser thread in a gap warning and in a time
+ * base error: the lines of the first part come before them. */
+static void test_import_csv_second_part_lines(void **state)
+{
+    (void)state;
+    const size_t rows = 500000, gap_row = 450000, jump_row = 400000;
+    const char *path = tf_test_tmpfile("second-part.csv");
+    for (int jump = 0; jump < 2; jump++) {
+        FILE *f = fopen(path, "w");
+        assert_non_null(f);
+        fprintf(f, "# an invented bench capture\ntime_s,a\n");
+        for (size_t k = 0; k < rows; k++) {
+            double t = (double)(k + (jump && k >= jump_row ? 5 : 0)) * 1e-7;
+            if (k == gap_row)
+                fprintf(f, "%.9e,\n", t);
+            else
+                fprintf(f, "%.9e,%d\n", t, (int)(k % 50));
+        }
+        fclose(f);
+        tf_import_options two;
+        tf_import_options_init(&two);
+        two.threads = 2;
+        two.gaps_interpolate = 1;
+        char want[160];
+        if (jump) { /* data starts at line 3: row k is line k + 3 */
+            snprintf(want, sizeof want, "second-part.csv:%zu:1: expected a time step of 1e-07 s",
+                     jump_row + 3);
+            expect_error(path, &two, TF_ERR_DATA, want);
+            continue;
+        }
+        tf_capture *cap = load(path, &two);
+        assert_int_equal(cap->n, rows);
+        assert_int_equal(cap->nwarn, 1);
+        snprintf(want, sizeof want, "1 empty or non-finite value filled by linear interpolation "
+                 "(the first at line %zu)", gap_row + 3);
+        if (!strstr(cap->warnings[0], want))
+            fail_msg("warning '%s', expected '%s'", cap->warnings[0], want);
+        tf_capture_destroy(cap);
+    }
+}
+
+/* Lone CRs in a file of LF line ends end lines as well (every CR, LF or CRLF
+ * ends a line, and line numbers count them so). */
+static void test_import_csv_mixed_line_ends(void **state)
+{
+    (void)state;
+    tf_capture *cap = load_text("mixed-ends.csv", "t,a\n0,1\r1,2\r\n2,3\n3,4\n", NULL);
+    const float want[] = {1, 2, 3, 4};
+    assert_int_equal(cap->n, 4);
+    assert_samples(&cap->ch[0], want, 4);
+    tf_capture_destroy(cap);
+    expect_text_error("mixed-ends-bad.csv", "t,a\n0,1\r1,2\r\n2,x\n", NULL, TF_ERR_DATA,
+                      "mixed-ends-bad.csv:4:2: expected a number, found 'x'");
+}
+
 static void test_import_csv_memory_entry(void **state)
 {
     (void)state;
@@ -774,6 +935,10 @@ int main(void)
         cmocka_unit_test(test_import_csv_python_decimal_comma),
         cmocka_unit_test(test_import_csv_python_space),
         cmocka_unit_test(test_import_csv_two_threads),
+        cmocka_unit_test(test_import_csv_parts_of_changing_length),
+        cmocka_unit_test(test_import_csv_late_quotes),
+        cmocka_unit_test(test_import_csv_second_part_lines),
+        cmocka_unit_test(test_import_csv_mixed_line_ends),
         cmocka_unit_test(test_import_csv_memory_entry),
         cmocka_unit_test(test_import_csv_independent_tools),
     };

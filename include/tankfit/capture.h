@@ -72,6 +72,11 @@ tf_status tf_capture_alloc(tf_capture *cap, size_t nchan, size_t n, tf_error *er
 /* Shrink every channel to n samples (n <= cap->n), releasing the tail. */
 tf_status tf_capture_truncate(tf_capture *cap, size_t n, tf_error *err);
 
+/* Make every channel hold n samples: a shrink as tf_capture_truncate, a growth
+ * keeps the first cap->n samples and leaves the rest uninitialised.
+ * TF_ERR_NOMEM on failure, with cap->n unchanged. */
+tf_status tf_capture_resize(tf_capture *cap, size_t n, tf_error *err);
+
 /* Append a metadata line (copied) or a formatted warning. */
 tf_status tf_capture_add_metadata(tf_capture *cap, const char *line, size_t len);
 tf_status tf_capture_add_warning(tf_capture *cap, const char *fmt, ...)
