@@ -155,8 +155,10 @@ typedef struct head {
     int complete;                  /* the head is the whole file */
 } head;
 
+/* The line's fields and their kinds; fields in columns marked in text (NULL:
+ * none) count as neither number nor text. */
 static void classify(const head *h, size_t i, char delim, char decimal, fieldset *fs,
-                     line_info *li)
+                     const unsigned char *text, line_info *li)
 {
     li->fields = 0;
     li->kinds = 0;
@@ -168,7 +170,8 @@ static void classify(const head *h, size_t i, char delim, char decimal, fieldset
     li->fields = fs->total;
     li->trail = fs->trail;
     for (size_t k = 0; k < fs->n - (size_t)fs->trail; k++)
-        li->kinds |= field_kind(fs_get(fs, k), fs->len[k], decimal);
+        if (!text || k >= fs->n || !text[k])
+            li->kinds |= field_kind(fs_get(fs, k), fs->len[k], decimal);
     if (fs->n < fs->total)
         li->kinds |= F_TEXT; /* too many fields to be a data row of this tool */
 }
@@ -515,7 +518,7 @@ static tf_status find_time(const head *h, const tf_import_options *opt, tf_csv_l
 {
     lay->time_col = -1;
     for (size_t c = 0; c < lay->ncols && lay->header_line; c++)
-        if (named_like_time(&lay->cols[c])) {
+        if (!lay->cols[c].text && named_like_time(&lay->cols[c])) {
             lay->time_col = (int)c;
             lay->time_named = 1;
             break;
@@ -577,6 +580,105 @@ static tf_status no_data_error(const head *h, const tf_csv_source *src, tf_error
                         ex);
 }
 
+/* When no dialect gives rows of numbers only: rows of numbers beside columns
+ * of text (a status word, a clock time). Under each candidate dialect the most
+ * common field count of lines with at least 3 fields is taken; among those
+ * lines a column is a number column when more of its fields are numbers (or
+ * empty) than text, else a text column. Rows whose number columns all hold
+ * numbers (at least one) are data rows; the candidate with the most wins,
+ * given 2 number columns and 1 text column at least. Sets lay->text (ncols
+ * flags) and the dialect; leaves lay->text NULL when nothing fits. */
+static tf_status choose_with_text(const head *h, tf_csv_layout *lay, fieldset *fs,
+                                  tf_error *err)
+{
+    size_t *fields = malloc(h->nlines * sizeof *fields);
+    size_t *num = calloc(TF_CSV_COLS_MAX, sizeof *num), *txt = calloc(TF_CSV_COLS_MAX, sizeof *txt);
+    unsigned char *mask = malloc(TF_CSV_COLS_MAX);
+    size_t best = 0;
+    tf_status st = TF_OK;
+    if (!fields || !num || !txt || !mask) {
+        st = tf_error_set(err, TF_ERR_NOMEM, "out of memory");
+        goto done;
+    }
+    for (size_t c = 0; c < NCAND; c++) {
+        char delim = candidates[c].delim, decimal = candidates[c].decimal;
+        for (size_t i = 0; i < h->nlines; i++)
+            fields[i] = blank(h, i) || split_line(h->buf + h->start[i], h->length[i], delim,
+                                                  fs) != 0 || fs->n != fs->total ? 0 : fs->total;
+        size_t mode = 0, mode_count = 0;
+        for (size_t i = 0; i < h->nlines; i++) {
+            if (fields[i] < 3 || fields[i] == mode)
+                continue;
+            size_t count = 0;
+            for (size_t j = 0; j < h->nlines; j++)
+                count += fields[j] == fields[i];
+            if (count > mode_count) {
+                mode_count = count;
+                mode = fields[i];
+            }
+            if (mode_count * 2 > h->nlines)
+                break;
+        }
+        if (mode == 0)
+            continue;
+        memset(num, 0, mode * sizeof *num);
+        memset(txt, 0, mode * sizeof *txt);
+        for (size_t i = 0; i < h->nlines; i++) {
+            if (fields[i] != mode ||
+                split_line(h->buf + h->start[i], h->length[i], delim, fs) != 0)
+                continue;
+            for (size_t k = 0; k < mode; k++) {
+                if (field_kind(fs_get(fs, k), fs->len[k], decimal) == F_TEXT)
+                    txt[k]++;
+                else
+                    num[k]++;
+            }
+        }
+        size_t numeric = 0;
+        for (size_t k = 0; k < mode; k++)
+            numeric += num[k] > txt[k];
+        if (numeric < 2 || numeric == mode)
+            continue;
+        size_t rows = 0;
+        for (size_t i = 0; i < h->nlines; i++) {
+            if (fields[i] != mode ||
+                split_line(h->buf + h->start[i], h->length[i], delim, fs) != 0)
+                continue;
+            int ok = 1, any = 0;
+            for (size_t k = 0; k < mode && ok; k++) {
+                if (num[k] <= txt[k])
+                    continue;
+                int kind = field_kind(fs_get(fs, k), fs->len[k], decimal);
+                ok = kind != F_TEXT;
+                any |= kind == F_NUMBER;
+            }
+            rows += ok && any;
+        }
+        if (rows >= 2 && rows > best) {
+            best = rows;
+            lay->delim = delim;
+            lay->decimal = decimal;
+            lay->ncols = mode;
+            for (size_t k = 0; k < mode; k++)
+                mask[k] = num[k] <= txt[k];
+        }
+    }
+    if (best) {
+        lay->space_mode = lay->delim == ' ';
+        lay->text = malloc(lay->ncols);
+        if (!lay->text)
+            st = tf_error_set(err, TF_ERR_NOMEM, "out of memory");
+        else
+            memcpy(lay->text, mask, lay->ncols);
+    }
+done:
+    free(fields);
+    free(num);
+    free(txt);
+    free(mask);
+    return st;
+}
+
 static tf_status choose(head *h, tf_csv_layout *lay, fieldset *fs, const tf_csv_source *src,
                         tf_error *err)
 {
@@ -587,7 +689,7 @@ static tf_status choose(head *h, tf_csv_layout *lay, fieldset *fs, const tf_csv_
     int chosen = -1;
     for (size_t c = 0; c < NCAND; c++) {
         for (size_t i = 0; i < h->nlines; i++)
-            classify(h, i, candidates[c].delim, candidates[c].decimal, fs, &li[i]);
+            classify(h, i, candidates[c].delim, candidates[c].decimal, fs, NULL, &li[i]);
         size_t mode, s = score(li, h->nlines, 2, &mode);
         if (s > best) {
             best = s;
@@ -597,7 +699,7 @@ static tf_status choose(head *h, tf_csv_layout *lay, fieldset *fs, const tf_csv_
     }
     if (chosen < 0) { /* a single column? */
         for (size_t i = 0; i < h->nlines; i++)
-            classify(h, i, ',', '.', fs, &li[i]);
+            classify(h, i, ',', '.', fs, NULL, &li[i]);
         size_t mode;
         if (score(li, h->nlines, 1, &mode) > 0 && mode == 1) {
             chosen = 4;
@@ -605,8 +707,10 @@ static tf_status choose(head *h, tf_csv_layout *lay, fieldset *fs, const tf_csv_
         }
     }
     free(li);
-    if (chosen < 0)
-        return no_data_error(h, src, err);
+    if (chosen < 0) {
+        tf_status st = choose_with_text(h, lay, fs, err);
+        return st == TF_OK && !lay->text ? no_data_error(h, src, err) : st;
+    }
     lay->delim = candidates[chosen].delim;
     lay->decimal = candidates[chosen].decimal;
     lay->space_mode = lay->delim == ' ';
@@ -694,7 +798,7 @@ static size_t find_header(const head *h, tf_csv_layout *lay, fieldset *fs, size_
     for (size_t i = 0; i < h->nlines; i++) {
         if (blank(h, i))
             continue;
-        classify(h, i, lay->delim, lay->decimal, fs, &li);
+        classify(h, i, lay->delim, lay->decimal, fs, lay->text, &li);
         if (is_numeric_row(&li) && row_fits(&li, lay->ncols)) {
             if (first_data == h->nlines)
                 first_data = i;
@@ -709,7 +813,7 @@ static size_t find_header(const head *h, tf_csv_layout *lay, fieldset *fs, size_
             j++;
         if (j >= h->nlines)
             continue;
-        classify(h, j, lay->delim, lay->decimal, fs, &li);
+        classify(h, j, lay->delim, lay->decimal, fs, lay->text, &li);
         if (is_numeric_row(&li) && row_fits(&li, lay->ncols)) {
             *header = i;
             size_t p = i;
@@ -767,6 +871,7 @@ static tf_status fill_columns(const head *h, tf_csv_layout *lay, size_t header, 
         } else {
             parse_column_name(name, len, c, &lay->cols[c]);
         }
+        lay->cols[c].text = lay->text && lay->text[c];
     }
     free(unit);
     return TF_OK;
@@ -851,5 +956,7 @@ done:
 void tf_csv_layout_free(tf_csv_layout *lay)
 {
     free(lay->cols);
+    free(lay->text);
     lay->cols = NULL;
+    lay->text = NULL;
 }

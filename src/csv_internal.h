@@ -44,6 +44,8 @@ typedef struct tf_csv_column {
     int unnamed;                   /* the header field was empty, or there is no header */
     int empty;                     /* unnamed trailing column, empty in every head row: its
                                       fields must stay empty and it is not a channel */
+    int text;                      /* a column of text beside the numbers (lay->text): not
+                                      a channel, its fields not read */
 } tf_csv_column;
 
 /* The layout found by tf_csv_detect. */
@@ -69,6 +71,7 @@ typedef struct tf_csv_layout {
     int time_sig;                  /* significant digits of the time column; 0: fixed decimals */
     size_t head_rows;              /* data rows seen in the head */
     int quotes;                    /* a '"' appears in the head */
+    unsigned char *text;           /* ncols flags, a text column (malloc'd); NULL: none */
 } tf_csv_layout;
 
 /* Detect the dialect, header, metadata and time column from the first bytes.

@@ -495,7 +495,7 @@ static void list_columns(const tf_csv_layout *lay, char *out, size_t size)
 {
     out[0] = '\0';
     for (size_t c = 0; c < lay->ncols; c++) {
-        if ((int)c == lay->time_col)
+        if ((int)c == lay->time_col || lay->cols[c].text)
             continue;
         size_t l = strlen(out);
         snprintf(out + l, size - l, "%s%s", l ? ", " : "", lay->cols[c].name);
@@ -511,7 +511,7 @@ static long choose_columns(const tf_csv_layout *lay, const tf_import_options *op
         map[c] = (int)c == lay->time_col ? MAP_TIME : lay->cols[c].empty ? MAP_EMPTY : MAP_SKIP;
     if (!opt->channels[0]) {
         for (size_t c = 0; c < lay->ncols; c++)
-            if (map[c] == MAP_SKIP)
+            if (map[c] == MAP_SKIP && !lay->cols[c].text)
                 map[c] = (int)n++;
         return n;
     }
@@ -528,6 +528,11 @@ static long choose_columns(const tf_csv_layout *lay, const tf_import_options *op
             len--;
         int c = find_column(lay, s, len);
         list_columns(lay, have, sizeof have);
+        if (c >= 0 && lay->cols[c].text) {
+            tf_error_set(err, TF_ERR_USAGE, "--channels: column '%.*s' of %s holds text, not "
+                         "numbers (channels: %s)", (int)len, s, path, have);
+            return -1;
+        }
         if (c < 0 || map[c] != MAP_SKIP) {
             tf_error_set(err, TF_ERR_USAGE, "--channels: %s '%.*s' in %s (channels: %s)",
                          c < 0 ? "no channel" : map[c] == MAP_TIME ? "the time base is not a channel:"
@@ -935,6 +940,10 @@ static tf_status import_source(const tf_csv_source *src, const tf_import_options
     if (st == TF_OK && nout == 0)
         st = tf_error_set(err, TF_ERR_DATA, "%s:%zu:1: expected a channel besides the time "
                           "column, found none", src->path, lay.header_line ? lay.header_line : lay.data_line);
+    for (size_t c = 0; st == TF_OK && c < lay.ncols; c++)
+        if (lay.cols[c].text)
+            tf_capture_add_warning(cap, "%s: column %zu ('%s') holds text, not numbers: it is "
+                                   "not read", src->path, c + 1, lay.cols[c].name);
     if (st == TF_OK) {
         for (size_t c = 0; c < lay.ncols; c++)
             if (map[c] >= 0)

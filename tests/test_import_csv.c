@@ -749,6 +749,56 @@ static void test_import_csv_second_part_lines(void **state)
     }
 }
 
+/* Columns of text beside the numbers (a clock time, a status word), as data
+ * loggers write them: found, skipped with a warning each, refused by
+ * --channels; the number columns read as usual (values against glibc strtod). */
+static void test_import_csv_text_columns(void **state)
+{
+    (void)state;
+    const size_t rows = 3000;
+    const char *path = tf_test_tmpfile("text-columns.csv");
+    FILE *f = fopen(path, "w");
+    assert_non_null(f);
+    fprintf(f, "Logger;invented bench logger\nChannel count;2\n");
+    fprintf(f, "Time;Seconds (s);I load (A);Status\n");
+    float *want = malloc(rows * sizeof *want);
+    assert_non_null(want);
+    for (size_t k = 0; k < rows; k++) {
+        char t[32], v[32];
+        snprintf(t, sizeof t, "%.7f", (double)k * 1e-6);
+        snprintf(v, sizeof v, "%.4f", (double)(k % 17) * 0.25 - 1.0);
+        want[k] = (float)strtod(v, NULL);
+        *strchr(t, '.') = ',';
+        *strchr(v, '.') = ',';
+        fprintf(f, "05:30:00.%06zu;%s;%s;%s\n", k, t, v, k % 500 ? "RUN" : "MARK");
+    }
+    fclose(f);
+    tf_capture *cap = load(path, NULL);
+    assert_int_equal(cap->n, rows);
+    assert_int_equal(cap->nchan, 1);
+    assert_string_equal(cap->ch[0].name, "I load");
+    assert_string_equal(cap->ch[0].unit, "A");
+    assert_int_equal(cap->dialect.time_column, 1);
+    assert_int_equal(cap->dialect.decimal, ',');
+    assert_int_equal(cap->nmeta, 2);
+    assert_true(fabs(cap->dt_s - 1e-6) < 1e-15);
+    assert_samples(&cap->ch[0], want, rows);
+    assert_int_equal(cap->nwarn, 2);
+    assert_non_null(strstr(cap->warnings[0], "column 1 ('Time') holds text, not numbers"));
+    assert_non_null(strstr(cap->warnings[1], "column 4 ('Status') holds text, not numbers"));
+    tf_capture_destroy(cap);
+    free(want);
+    tf_import_options opt;
+    tf_import_options_init(&opt);
+    snprintf(opt.channels, sizeof opt.channels, "Status");
+    expect_error(path, &opt, TF_ERR_USAGE, "column 'Status' of");
+    /* text in a number column further on is still an error at its line */
+    f = fopen(path, "a");
+    fputs("05:30:01.000000;0,0030000;x;RUN\n", f);
+    fclose(f);
+    expect_error(path, NULL, TF_ERR_DATA, "text-columns.csv:3004:3: expected a number, found 'x'");
+}
+
 /* Lone CRs in a file of LF line ends end lines as well (every CR, LF or CRLF
  * ends a line, and line numbers count them so). */
 static void test_import_csv_mixed_line_ends(void **state)
@@ -939,6 +989,7 @@ int main(void)
         cmocka_unit_test(test_import_csv_late_quotes),
         cmocka_unit_test(test_import_csv_second_part_lines),
         cmocka_unit_test(test_import_csv_mixed_line_ends),
+        cmocka_unit_test(test_import_csv_text_columns),
         cmocka_unit_test(test_import_csv_memory_entry),
         cmocka_unit_test(test_import_csv_independent_tools),
     };
