@@ -155,10 +155,10 @@ typedef struct head {
     int complete;                  /* the head is the whole file */
 } head;
 
-/* The line's fields and their kinds; fields in columns marked in text (NULL:
- * none) count as neither number nor text. */
+/* The line's fields and their kinds; fields in the first ntext columns that
+ * are marked in text (NULL: none) count as neither number nor text. */
 static void classify(const head *h, size_t i, char delim, char decimal, fieldset *fs,
-                     const unsigned char *text, line_info *li)
+                     const unsigned char *text, size_t ntext, line_info *li)
 {
     li->fields = 0;
     li->kinds = 0;
@@ -170,7 +170,7 @@ static void classify(const head *h, size_t i, char delim, char decimal, fieldset
     li->fields = fs->total;
     li->trail = fs->trail;
     for (size_t k = 0; k < fs->n - (size_t)fs->trail; k++)
-        if (!text || k >= fs->n || !text[k])
+        if (!text || k >= ntext || !text[k])
             li->kinds |= field_kind(fs_get(fs, k), fs->len[k], decimal);
     if (fs->n < fs->total)
         li->kinds |= F_TEXT; /* too many fields to be a data row of this tool */
@@ -689,7 +689,7 @@ static tf_status choose(head *h, tf_csv_layout *lay, fieldset *fs, const tf_csv_
     int chosen = -1;
     for (size_t c = 0; c < NCAND; c++) {
         for (size_t i = 0; i < h->nlines; i++)
-            classify(h, i, candidates[c].delim, candidates[c].decimal, fs, NULL, &li[i]);
+            classify(h, i, candidates[c].delim, candidates[c].decimal, fs, NULL, 0, &li[i]);
         size_t mode, s = score(li, h->nlines, 2, &mode);
         if (s > best) {
             best = s;
@@ -699,7 +699,7 @@ static tf_status choose(head *h, tf_csv_layout *lay, fieldset *fs, const tf_csv_
     }
     if (chosen < 0) { /* a single column? */
         for (size_t i = 0; i < h->nlines; i++)
-            classify(h, i, ',', '.', fs, NULL, &li[i]);
+            classify(h, i, ',', '.', fs, NULL, 0, &li[i]);
         size_t mode;
         if (score(li, h->nlines, 1, &mode) > 0 && mode == 1) {
             chosen = 4;
@@ -798,7 +798,7 @@ static size_t find_header(const head *h, tf_csv_layout *lay, fieldset *fs, size_
     for (size_t i = 0; i < h->nlines; i++) {
         if (blank(h, i))
             continue;
-        classify(h, i, lay->delim, lay->decimal, fs, lay->text, &li);
+        classify(h, i, lay->delim, lay->decimal, fs, lay->text, lay->text ? lay->ncols : 0, &li);
         if (is_numeric_row(&li) && row_fits(&li, lay->ncols)) {
             if (first_data == h->nlines)
                 first_data = i;
@@ -813,7 +813,7 @@ static size_t find_header(const head *h, tf_csv_layout *lay, fieldset *fs, size_
             j++;
         if (j >= h->nlines)
             continue;
-        classify(h, j, lay->delim, lay->decimal, fs, lay->text, &li);
+        classify(h, j, lay->delim, lay->decimal, fs, lay->text, lay->text ? lay->ncols : 0, &li);
         if (is_numeric_row(&li) && row_fits(&li, lay->ncols)) {
             *header = i;
             size_t p = i;

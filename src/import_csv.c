@@ -712,6 +712,18 @@ static tf_status setup_parts(const tf_csv_source *src, const tf_csv_layout *lay,
     for (size_t i = 1; i < nw; i++)
         w[i].line = 1;
     tf_status st = tf_capture_alloc(cap, job->nout, total, err);
+    if (st == TF_ERR_NOMEM && total > nw * 65536) {
+        /* the estimate is only a hint (rows beyond a window overflow): when its
+         * address space is refused, start small and let the rows grow it */
+        total = 0;
+        for (size_t i = 0; i < nw; i++) {
+            w[i].base = total;
+            w[i].win_cap = w[i].win_cap < 65536 ? w[i].win_cap : 65536;
+            total += w[i].win_cap;
+        }
+        tf_error_clear(err);
+        st = tf_capture_alloc(cap, job->nout, total, err);
+    }
     if (st != TF_OK)
         return st;
     size_t nout = job->nout ? job->nout : 1;
@@ -787,11 +799,22 @@ static tf_status assemble(tf_capture *cap, csv_worker *w, size_t nw, tf_error *e
                 memmove(cap->ch[m].samples + pos[i], cap->ch[m].samples + w[i].base,
                         win[i] * sizeof(float));
     }
+    /* overflow rows from the end, 2^18 at a time, each array shrunk behind the
+     * copy: the grown arrays fill as the overflow empties, so memory does not
+     * hold both */
+    const size_t step = (size_t)1 << 18;
     for (size_t i = 0; i < nw; i++)
-        if (over[i])
-            for (size_t m = 0; m < cap->nchan; m++)
-                memcpy(cap->ch[m].samples + pos[i] + win[i], w[i].ovf[m],
-                       over[i] * sizeof(float));
+        for (size_t m = 0; m < cap->nchan && over[i]; m++) {
+            float *dst = cap->ch[m].samples + pos[i] + win[i];
+            for (size_t left = over[i]; left;) {
+                size_t k = left < step ? left : step;
+                left -= k;
+                memcpy(dst + left, w[i].ovf[m] + left, k * sizeof(float));
+                float *shrunk = left ? realloc(w[i].ovf[m], left * sizeof(float)) : NULL;
+                if (shrunk)
+                    w[i].ovf[m] = shrunk;
+            }
+        }
     return tf_capture_truncate(cap, n, err);
 }
 

@@ -823,6 +823,17 @@ static void test_import_csv_memory_entry(void **state)
     assert_int_equal(cap->n, 2);
     assert_string_equal(cap->path, "mem");
     tf_capture_destroy(cap);
+    /* found by fuzz_csv (2026-12-02): a header-like line with more fields than
+     * the text-column layout made detection read past its column flags; now a
+     * clear error (AddressSanitizer checks the reads) */
+    static const char fuzzed[] = "\377\377\377\377\377\377\377\377\377|,\206\323i\n"
+                                 "000,e+00,1.0,2.0\n1.000000e,1.5,\n2.0000'0e-06,nan,3.0\n"
+                                 "3.000infe-06,2.5,3.5\n";
+    cap = (tf_capture *)1;
+    assert_int_equal(tf_csv_import_memory("fuzzed", fuzzed, sizeof fuzzed - 1, NULL, &cap, &err),
+                     TF_ERR_DATA);
+    assert_null(cap);
+    assert_non_null(strstr(err.msg, "fuzzed:3:1: expected a time column"));
 }
 
 /* ---- outside references: files written by numpy.savetxt, pandas.DataFrame.to_csv,
