@@ -441,6 +441,37 @@ def case_inst_meta_colon(out, e):
     e.ok(parse_back([r[1:] for r in rows]), 0.0, 1e-6, ['ch1', 'ch2'], ['', ''])
 
 
+def case_sox_dat(out, e):
+    # SoX's text format (sox IN.wav OUT.dat): '; Sample Rate N' and '; Channels N'
+    # lines, then time and every channel right-aligned in runs of spaces
+    import subprocess
+    import tempfile
+    with tempfile.TemporaryDirectory() as d:
+        wav = d + '/in.wav'
+        subprocess.run(['sox', '-D', '-n', '-r', '20000', '-c', '2', '-b', '16', wav,
+                        'synth', '0.05', 'sine', '1000', 'sine', '3000'], check=True)
+        subprocess.run(['sox', '-D', wav, '-t', 'dat', out], check=True)
+    rows = rows_of(open(out).read().replace(';', '#'), ' ')
+    e.ok(parse_back([r[1:] for r in rows]), 0.0, 5e-05, ['col2', 'col3'], ['', ''])
+
+
+def case_py_text_columns(out, e):
+    # a logger's layout (Python csv module): a clock-time column named 'Time', the
+    # seconds, two channels with decimal commas and a status word; the two text
+    # columns are not channels and 'Time' is not the time base
+    t, v = signals(600, 2, 0.0, 1e-6)
+    rows = [['05:30:00.%06d' % k, ('%.7f' % t[k]).replace('.', ','),
+             ('%.5e' % v[k, 0]).replace('.', ','), ('%.5e' % v[k, 1]).replace('.', ','),
+             'RUN' if k % 100 else 'MARK'] for k in range(600)]
+    with open(out, 'w', newline='') as f:
+        w = csv.writer(f, delimiter=';', lineterminator='\r\n')
+        w.writerow(['Time', 'Seconds [s]', 'U out [kV]', 'I load (A)', 'Status'])
+        w.writerows(rows)
+    vals = parse_back([r[2:4] for r in rows], ',')
+    vals[:, 0] *= 1000.0
+    e.ok(vals, 0.0, 1e-6, ['U out', 'I load'], ['V', 'A'])
+
+
 CASES = {k[5:]: v for k, v in sorted(globals().items()) if k.startswith('case_')}
 
 if __name__ == '__main__':
