@@ -897,6 +897,62 @@ static void mark_empty_columns(const head *h, tf_csv_layout *lay, size_t first, 
         lay->cols[c].empty = 1;
 }
 
+/* Digits only, after an optional sign when sign is set. */
+static int plain_integer(const char *s, size_t len, int sign)
+{
+    size_t k = sign && len && (s[0] == '-' || s[0] == '+');
+    if (k == len)
+        return 0;
+    for (; k < len; k++)
+        if (s[k] < '0' || s[k] > '9')
+            return 0;
+    return 1;
+}
+
+/* One channel printed with decimal commas ("i_load (A)" over "1,5", "-0,75")
+ * splits at the commas into two columns of integers. Taken for what it is when
+ * the line just before the data is a single name (no comma: a header of one
+ * column), every data row of the head is two fields, a signed integer and
+ * digits, i.e. one number with a decimal comma, and the integers before the
+ * commas do not increase strictly (so they cannot be a time column of a
+ * two-column reading): then the layout becomes one column with ',' as the
+ * decimal mark. Returns 1 when it changed the layout. */
+static int one_decimal_comma_column(const head *h, tf_csv_layout *lay, fieldset *fs,
+                                    size_t first)
+{
+    if (lay->delim != ',' || lay->ncols != 2 || lay->text)
+        return 0;
+    size_t p = first;
+    while (p > 0 && blank(h, p - 1))
+        p--;
+    if (p == 0 || split_header(h, p - 1, ',', fs) != 0 || fs->total != 1 || fs->len[0] == 0 ||
+        field_kind(fs_get(fs, 0), fs->len[0], '.') != F_TEXT)
+        return 0;
+    size_t rows = 0;
+    int increasing = 1;
+    double prev = 0;
+    for (size_t i = first; i < h->nlines; i++) {
+        if (blank(h, i))
+            continue;
+        if (split_line(h->buf + h->start[i], h->length[i], ',', fs) != 0 || fs->total != 2 ||
+            fs->n != 2 || !plain_integer(fs_get(fs, 0), fs->len[0], 1) ||
+            !plain_integer(fs_get(fs, 1), fs->len[1], 0))
+            return 0;
+        double v = strtod(fs_get(fs, 0), NULL); /* digits only: no locale question */
+        if (rows && !(v > prev))
+            increasing = 0;
+        prev = v;
+        rows++;
+    }
+    if (rows < 2 || increasing)
+        return 0;
+    lay->delim = ';'; /* absent from these lines: each is one field */
+    lay->decimal = ',';
+    lay->space_mode = 0;
+    lay->ncols = 1;
+    return 1;
+}
+
 tf_status tf_csv_detect(const tf_csv_source *src, const tf_import_options *opt,
                         tf_csv_layout *lay, tf_capture *cap, tf_error *err)
 {
@@ -914,6 +970,8 @@ tf_status tf_csv_detect(const tf_csv_source *src, const tf_import_options *opt,
     if ((st = choose(h, lay, fs, src, err)) != TF_OK)
         goto done;
     size_t header, units, first = find_header(h, lay, fs, &header, &units);
+    if (first < h->nlines && header >= h->nlines && one_decimal_comma_column(h, lay, fs, first))
+        first = find_header(h, lay, fs, &header, &units);
     if (first >= h->nlines) {
         st = no_data_error(h, src, err);
         goto done;

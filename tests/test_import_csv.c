@@ -799,6 +799,35 @@ static void test_import_csv_text_columns(void **state)
     expect_error(path, NULL, TF_ERR_DATA, "text-columns.csv:3004:3: expected a number, found 'x'");
 }
 
+/* One channel with decimal commas splits at its commas into two columns of
+ * integers: under a one-name header, and when the integers before the commas
+ * cannot be a time column, it is read as one column. Rising integers keep the
+ * two-column reading (time, value). */
+static void test_import_csv_one_decimal_comma_column(void **state)
+{
+    (void)state;
+    tf_import_options opt;
+    tf_import_options_init(&opt);
+    opt.sample_rate_hz = 1e6;
+    tf_capture *cap = load_text("one-column.csv", "i_load (A)\n1,5\n2,25\n\n-0,75\n3,0\n", &opt);
+    const float want[] = {1.5f, 2.25f, -0.75f, 3.0f};
+    assert_int_equal(cap->nchan, 1);
+    assert_int_equal(cap->n, 4);
+    assert_string_equal(cap->ch[0].name, "i_load");
+    assert_string_equal(cap->ch[0].unit, "A");
+    assert_int_equal(cap->dialect.decimal, ',');
+    assert_int_equal(cap->dialect.header_line, 1);
+    assert_samples(&cap->ch[0], want, 4);
+    tf_capture_destroy(cap);
+    cap = load_text("two-columns.csv", "Waveform\n0,5\n1,5\n2,7\n", NULL);
+    const float v[] = {5, 5, 7};
+    assert_int_equal(cap->nchan, 1);
+    assert_int_equal(cap->n, 3);
+    assert_int_equal(cap->dialect.time_column, 0);
+    assert_samples(&cap->ch[0], v, 3);
+    tf_capture_destroy(cap);
+}
+
 /* Lone CRs in a file of LF line ends end lines as well (every CR, LF or CRLF
  * ends a line, and line numbers count them so). */
 static void test_import_csv_mixed_line_ends(void **state)
@@ -1001,6 +1030,7 @@ int main(void)
         cmocka_unit_test(test_import_csv_second_part_lines),
         cmocka_unit_test(test_import_csv_mixed_line_ends),
         cmocka_unit_test(test_import_csv_text_columns),
+        cmocka_unit_test(test_import_csv_one_decimal_comma_column),
         cmocka_unit_test(test_import_csv_memory_entry),
         cmocka_unit_test(test_import_csv_independent_tools),
     };
