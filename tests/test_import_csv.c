@@ -548,6 +548,22 @@ static void on_progress(void *ctx, double fraction)
 /* A file above the two-thread threshold with blank lines in the first half:
  * two threads must give exactly what one gives, and an error in the second
  * half must name its true line. */
+/* Append row (with a bad second field, bad) to the file at path (named name):
+ * one thread and two must both report it at line, field 2. */
+static void expect_bad_last_row(const char *path, const char *name, const char *row,
+                                size_t line, const char *bad, const tf_import_options *one,
+                                const tf_import_options *two)
+{
+    FILE *f = fopen(path, "a");
+    assert_non_null(f);
+    fputs(row, f);
+    fclose(f);
+    char want[160];
+    snprintf(want, sizeof want, "%s:%zu:2: expected a number, found '%s'", name, line, bad);
+    expect_error(path, two, TF_ERR_DATA, want);
+    expect_error(path, one, TF_ERR_DATA, want);
+}
+
 static void test_import_csv_two_threads(void **state)
 {
     (void)state;
@@ -593,13 +609,7 @@ static void test_import_csv_two_threads(void **state)
     tf_capture_destroy(b);
 
     /* a bad field late in the file: the second thread's line count is exact */
-    f = fopen(path, "a");
-    fputs("4.0e-02,abc,1\n", f);
-    fclose(f);
-    char want[128];
-    snprintf(want, sizeof want, "big.csv:%zu:2: expected a number, found 'abc'", line + 1);
-    expect_error(path, &two, TF_ERR_DATA, want);
-    expect_error(path, &one, TF_ERR_DATA, want);
+    expect_bad_last_row(path, "big.csv", "4.0e-02,abc,1\n", line + 1, "abc", &one, &two);
 }
 
 /* Row k of the layout test below: long rows (a channel printed with 13
@@ -662,13 +672,7 @@ static void test_import_csv_parts_of_changing_length(void **state)
         tf_capture_destroy(b);
         free(want);
         /* a bad field in the last row: line = header + rows + 1 */
-        f = fopen(path, "a");
-        fputs("6.0e-02,x1\n", f);
-        fclose(f);
-        char msg[128];
-        snprintf(msg, sizeof msg, "changing.csv:%zu:2: expected a number, found 'x1'", rows + 2);
-        expect_error(path, &two, TF_ERR_DATA, msg);
-        expect_error(path, &one, TF_ERR_DATA, msg);
+        expect_bad_last_row(path, "changing.csv", "6.0e-02,x1\n", rows + 2, "x1", &one, &two);
     }
 }
 
