@@ -176,6 +176,13 @@ static void classify(const head *h, size_t i, char delim, char decimal, fieldset
         li->kinds |= F_TEXT; /* too many fields to be a data row of this tool */
 }
 
+/* classify under the chosen layout, its text columns left out */
+static void classify_in(const head *h, size_t i, const tf_csv_layout *lay, fieldset *fs,
+                        line_info *li)
+{
+    classify(h, i, lay->delim, lay->decimal, fs, lay->text, lay->text ? lay->ncols : 0, li);
+}
+
 /* ---- reading the head and splitting it into lines ---- */
 
 static tf_status read_head(const tf_csv_source *src, head *h, tf_csv_layout *lay, tf_error *err)
@@ -798,7 +805,7 @@ static size_t find_header(const head *h, tf_csv_layout *lay, fieldset *fs, size_
     for (size_t i = 0; i < h->nlines; i++) {
         if (blank(h, i))
             continue;
-        classify(h, i, lay->delim, lay->decimal, fs, lay->text, lay->text ? lay->ncols : 0, &li);
+        classify_in(h, i, lay, fs, &li);
         if (is_numeric_row(&li) && row_fits(&li, lay->ncols)) {
             if (first_data == h->nlines)
                 first_data = i;
@@ -813,7 +820,7 @@ static size_t find_header(const head *h, tf_csv_layout *lay, fieldset *fs, size_
             j++;
         if (j >= h->nlines)
             continue;
-        classify(h, j, lay->delim, lay->decimal, fs, lay->text, lay->text ? lay->ncols : 0, &li);
+        classify_in(h, j, lay, fs, &li);
         if (is_numeric_row(&li) && row_fits(&li, lay->ncols)) {
             *header = i;
             size_t p = i;
